@@ -1,0 +1,2 @@
+//! symtrust-eval.
+#![deny(missing_docs)]

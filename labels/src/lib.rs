@@ -1,0 +1,13 @@
+//! The site folder of symtrust: configuration, sheets, label documents, label QA,
+//! the split by sheet, crop libraries, interchange formats and the synthetic plant.
+#![deny(missing_docs)]
+
+pub mod crops;
+pub mod error;
+pub mod geometry;
+pub mod hash;
+pub mod rng;
+
+pub use error::{LabelError, Result};
+pub use geometry::{BBox, Window};
+pub use rng::SeededRng;

@@ -1,0 +1,2 @@
+//! symtrust-reports.
+#![deny(missing_docs)]

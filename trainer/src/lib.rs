@@ -1,0 +1,2 @@
+//! symtrust-trainer.
+#![deny(missing_docs)]
