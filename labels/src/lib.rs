@@ -2,11 +2,15 @@
 //! the split by sheet, crop libraries, interchange formats and the synthetic plant.
 #![deny(missing_docs)]
 
+pub mod atomic;
 pub mod crops;
+pub mod detections;
 pub mod error;
 pub mod geometry;
 pub mod hash;
 pub mod rng;
+pub mod site;
+pub mod synth;
 
 pub use error::{LabelError, Result};
 pub use geometry::{BBox, Window};

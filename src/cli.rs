@@ -1,0 +1,51 @@
+//! The command tree (clap) and the dispatch from a parsed command to its module.
+
+use crate::cmd;
+use crate::context::Ctx;
+use clap::{Args, Parser, Subcommand};
+use std::path::PathBuf;
+
+/// Train and evaluate your own P&ID symbol detectors on a CPU, and prove how far
+/// their output can be trusted.
+///
+/// Automated symbol output supports, and does not replace, review by qualified
+/// people under the site's procedures and local codes.
+#[derive(Debug, Parser)]
+#[command(name = "symtrust", version, about, long_about = None)]
+pub struct Cli {
+    /// Options every command takes.
+    #[command(flatten)]
+    pub global: GlobalArgs,
+    /// The command to run.
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+/// Options every command takes.
+#[derive(Debug, Args)]
+pub struct GlobalArgs {
+    /// Site folder (default: the current folder).
+    #[arg(long, global = true, value_name = "DIR")]
+    pub site: Option<PathBuf>,
+    /// No progress bars or messages; errors are still printed.
+    #[arg(long, short = 'q', global = true)]
+    pub quiet: bool,
+    /// Print the result as JSON on standard output.
+    #[arg(long, global = true)]
+    pub json: bool,
+}
+
+/// The commands.
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Create a new site folder.
+    #[command(after_help = "Example:\n  symtrust init ./north-unit")]
+    Init(cmd::init::InitArgs),
+}
+
+/// Runs a parsed command and returns its exit code.
+pub fn dispatch(ctx: &Ctx, command: Command) -> anyhow::Result<u8> {
+    match command {
+        Command::Init(args) => cmd::init::run(ctx, &args),
+    }
+}

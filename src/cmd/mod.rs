@@ -1,0 +1,3 @@
+//! One module per command: clap arguments plus a `run` that wires library calls.
+
+pub mod init;
