@@ -3,13 +3,16 @@
 #![deny(missing_docs)]
 
 pub mod atomic;
+pub mod clock;
 pub mod crops;
 pub mod detections;
+pub mod document;
 pub mod error;
 pub mod geometry;
 pub mod hash;
 pub mod rng;
 pub mod site;
+pub mod store;
 pub mod synth;
 
 pub use error::{LabelError, Result};
