@@ -10,8 +10,11 @@ pub mod document;
 pub mod error;
 pub mod geometry;
 pub mod hash;
+pub mod raster;
 pub mod rng;
+pub mod sheets;
 pub mod site;
+pub mod split;
 pub mod store;
 pub mod synth;
 
