@@ -41,11 +41,25 @@ pub enum Command {
     /// Create a new site folder.
     #[command(after_help = "Example:\n  symtrust init ./north-unit")]
     Init(cmd::init::InitArgs),
+    /// Write a complete, labelled site of the synthetic plant.
+    #[command(after_help = "Example:\n  symtrust synth --out ./plant-b --sheets 20 --style b --seed 7")]
+    Synth(cmd::synth::SynthArgs),
+    /// Register raster sheets.
+    Sheets(cmd::sheets::SheetsArgs),
+    /// Build crop libraries.
+    Crops(cmd::crops::CropsArgs),
+    /// Run the whole job on the built-in synthetic plant.
+    #[command(after_help = "Example:\n  symtrust demo --out ./symtrust-demo")]
+    Demo(cmd::demo::DemoArgs),
 }
 
 /// Runs a parsed command and returns its exit code.
 pub fn dispatch(ctx: &Ctx, command: Command) -> anyhow::Result<u8> {
     match command {
         Command::Init(args) => cmd::init::run(ctx, &args),
+        Command::Synth(args) => cmd::synth::run(ctx, &args),
+        Command::Sheets(args) => cmd::sheets::run(ctx, &args),
+        Command::Crops(args) => cmd::crops::run(ctx, &args),
+        Command::Demo(args) => cmd::demo::run(ctx, &args),
     }
 }

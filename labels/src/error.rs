@@ -90,6 +90,12 @@ pub enum LabelError {
         /// What does not match.
         message: String,
     },
+    /// Settings of the synthetic sheet generator are out of range.
+    #[error("synthetic sheet settings: {message}")]
+    SynthSettings {
+        /// Which setting is wrong and its allowed range.
+        message: String,
+    },
 }
 
 /// Result with [`LabelError`].

@@ -10,6 +10,7 @@ pub mod document;
 pub mod error;
 pub mod geometry;
 pub mod hash;
+pub mod plant;
 pub mod raster;
 pub mod rng;
 pub mod sheets;

@@ -1,3 +1,7 @@
 //! One module per command: clap arguments plus a `run` that wires library calls.
 
+pub mod crops;
+pub mod demo;
 pub mod init;
+pub mod sheets;
+pub mod synth;
