@@ -83,6 +83,12 @@ pub enum EvalError {
         /// Sheet id on the challenger side.
         right: String,
     },
+    /// The same sheet id appears twice in one evaluation.
+    #[error("sheet {sheet:?} is listed twice; each held-out sheet must be evaluated once")]
+    DuplicateSheet {
+        /// The repeated id.
+        sheet: String,
+    },
     /// An input that must not be empty is empty.
     #[error("{what} is empty")]
     Empty {

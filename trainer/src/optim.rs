@@ -59,7 +59,7 @@ impl AdamW {
             let Some(g) = grads.get(var.as_tensor()) else {
                 continue;
             };
-            let update = || -> candle_core::Result<()> {
+            let mut update = || -> candle_core::Result<()> {
                 let m = ((&self.m[i] * BETA1)? + (g * (1.0 - BETA1))?)?;
                 let v = ((&self.v[i] * BETA2)? + (g.sqr()? * (1.0 - BETA2))?)?;
                 let denom = ((&v / c2)?.sqrt()? + EPS)?;

@@ -191,7 +191,7 @@ pub fn weighted_loss(logits: &Tensor, classes: &[usize], weights: &[f64]) -> can
     }
     let target = Tensor::from_vec(target, (n, k), &Device::Cpu)?.to_dtype(logits.dtype())?;
     let logp = candle_nn::ops::log_softmax(logits, 1)?;
-    ((logp * target)?.sum_all()? * (-1.0 / total.max(f64::MIN_POSITIVE)))?.squeeze(0).or_else(|_| Ok(Tensor::new(0f32, &Device::Cpu)?))
+    (logp * target)?.sum_all()? * (-1.0 / total.max(f64::MIN_POSITIVE))
 }
 
 /// Validation loss, accuracy and F1 of `net` on `samples`.

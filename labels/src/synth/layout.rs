@@ -85,6 +85,8 @@ struct ValveAt {
     vertical: bool,
     /// The actuator tip (mm).
     tip: (f64, f64),
+    /// Index of the valve among the labelled symbols.
+    symbol: usize,
 }
 
 struct Builder<'r> {
@@ -135,7 +137,7 @@ pub(crate) fn compose(
         area,
         loop_no: 0,
     };
-    let sheet_no = 1 + b.rng.below(9) as u32;
+    let sheet_no = 1 + b.rng.below(5) as u32;
     b.loop_no = sheet_no * 100;
     b.frame(&frame);
     let title_px = b.title_block(&title, id, sheet_no);
@@ -146,6 +148,7 @@ pub(crate) fn compose(
         let band = BBox::new(area.x, area.y + k as f64 * band_h, area.w, band_h);
         b.band(&band, sheet_no * 100 + k as u32 * 10);
     }
+    b.run_instruments();
     b.line_numbers();
     b.inline_distractors();
     b.floating_distractors();
@@ -280,14 +283,14 @@ impl Builder<'_> {
         BBox::new(c.0 - r, c.1 - r, 2.0 * r, 2.0 * r)
     }
 
-    /// Places an instrument bubble at the first free candidate centre.
-    fn bubble(&mut self, class: Class, letters: &str, cands: &[(f64, f64)]) -> Option<(f64, f64)> {
+    /// Places an instrument bubble at the first free candidate centre; returns
+    /// the centre and the symbol index.
+    fn bubble(&mut self, class: Class, letters: &str, number: u32, cands: &[(f64, f64)]) -> Option<((f64, f64), usize)> {
         for &c in cands {
             if self.free(&grow(&self.bubble_extent(c), 2.5), true) {
-                self.loop_no += 1;
-                let number = format!("{}", self.loop_no);
-                self.symbol(class, self.at(c), Some((letters.to_string(), number)));
-                return Some(c);
+                let idx = self.symbols.len();
+                self.symbol(class, self.at(c), Some((letters.to_string(), number.to_string())));
+                return Some((c, idx));
             }
         }
         None
@@ -332,7 +335,7 @@ impl Builder<'_> {
             let y = t.y + t.h * r;
             prims.push(g.seg((t.x, y), (t.right(), y), st.thin_mm));
         }
-        let xm = t.x + t.w * 0.55;
+        let xm = t.x + t.w * 0.62;
         prims.push(g.seg((xm, t.y + t.h * rows[1]), (xm, t.bottom()), st.thin_mm));
         let pad = 3.0;
         let title = format!("UNIT {} TRANSFER", sheet_no * 100);
@@ -476,7 +479,7 @@ impl Builder<'_> {
         self.push(prims);
         self.objects.push(BBox::new(x_feed - 1.0, first.1 - 4.0, 14.0, 8.0));
         self.process_line(&[(x_feed + 12.0, first.1), first]);
-        self.text("FROM STORAGE", x_feed, first.1 + 6.5, st.tag_text_mm, Anchor::Left);
+        self.text("FEED", x_feed, first.1 + 6.5, st.tag_text_mm, Anchor::Left);
         let mut routes = Vec::new();
         for k in 0..n_units {
             let e = eqs[k].clone();
@@ -595,6 +598,7 @@ impl Builder<'_> {
         };
         self.push(vec![Prim::Erase(erase.scaled(self.s))]);
         let pl = Place { quarter_turns: if vertical { 1 } else { 0 }, ..self.at(c) };
+        let symbol = self.symbols.len();
         self.symbol(Class::ControlValve, pl, None);
         let reach = st.actuator_stem_mm + st.actuator_width_mm / 2.0 + st.outline_mm / 2.0;
         let tip = if vertical { (c.0 + reach, c.1) } else { (c.0, c.1 - reach) };
@@ -605,7 +609,7 @@ impl Builder<'_> {
                 self.inline_shape(hc, vertical, 0);
             }
         }
-        ValveAt { centre: c, vertical, tip }
+        ValveAt { centre: c, vertical, tip, symbol }
     }
 
     /// Draws an unlabelled inline shape (0 hand valve, 1 ball valve, 2 reducer).
@@ -637,11 +641,12 @@ impl Builder<'_> {
         true
     }
 
-    /// The instrument loops of one unit.
+    /// The instrument loops of one unit: a level or flow transmitter, its
+    /// controller driving the unit's control valve, an alarm, and a local gauge.
     fn loops(&mut self, e: &Equipment, r: &UnitRoute) {
         let st = self.st;
         let rad = st.bubble_diameter_mm / 2.0;
-        let mut transmitter: Option<((f64, f64), char)> = None;
+        let mut transmitter: Option<((f64, f64), usize, char, u32)> = None;
         // Level transmitter on the equipment.
         if let Some((t_hi, t_lo)) = e.level_taps
             && self.rng.chance(0.8)
@@ -653,16 +658,17 @@ impl Builder<'_> {
                 .collect();
             let cls = if self.rng.chance(0.8) { Class::BubbleField } else { Class::BubbleBoard };
             let letters = if cls == Class::BubbleField { "LT" } else { "LI" };
-            if let Some(c) = self.bubble(cls, letters, &cands) {
+            let number = self.next_loop();
+            if let Some((c, idx)) = self.bubble(cls, letters, number, &cands) {
                 let xm = t_hi.0 + 4.0;
                 self.thin_line(&[t_hi, (xm, t_hi.1), (xm, c.1), (c.0 - rad, c.1)], st.signal_line_mm);
                 self.thin_line(&[t_lo, (xm, t_lo.1), (xm, c.1)], st.signal_line_mm);
                 if cls == Class::BubbleField {
-                    transmitter = Some((c, 'L'));
+                    transmitter = Some((c, idx, 'L', number));
                 }
             }
         }
-        // Flow transmitter on the discharge run.
+        // Flow (or other) transmitter on the discharge run.
         if let Some((a, b)) = r.run {
             let lo = a.0 + 6.0;
             let hi = r.valve.filter(|v| !v.vertical).map_or(b.0 - 6.0, |v| v.centre.0 - 8.0);
@@ -674,16 +680,17 @@ impl Builder<'_> {
                     .collect();
                 let first_letter = *self.rng.pick(&['F', 'F', 'P', 'T', 'A']).expect("non-empty");
                 let letters = format!("{first_letter}T");
-                if let Some(c) = self.bubble(Class::BubbleField, &letters, &cands) {
+                let number = self.next_loop();
+                if let Some((c, idx)) = self.bubble(Class::BubbleField, &letters, number, &cands) {
                     self.thin_line(&[(c.0, a.1), (c.0, c.1 + rad)], st.signal_line_mm);
                     if transmitter.is_none() {
-                        transmitter = Some((c, first_letter));
+                        transmitter = Some((c, idx, first_letter, number));
                     }
                 }
             }
         }
         // Controller between transmitter and valve.
-        if let (Some(v), Some((tc, letter))) = (r.valve, transmitter) {
+        if let (Some(v), Some((tc, t_idx, letter, number))) = (r.valve, transmitter) {
             let cands: Vec<(f64, f64)> = if v.vertical {
                 [22.0, 28.0, 34.0]
                     .iter()
@@ -698,42 +705,17 @@ impl Builder<'_> {
             let cls = if self.rng.chance(0.5) { Class::BubbleShared } else { Class::BubbleBoard };
             let fun = *self.rng.pick(&["IC", "IC", "RC", "C"]).expect("non-empty");
             let letters = format!("{letter}{fun}");
-            if let Some(cc) = self.bubble(cls, &letters, &cands) {
-                // Transmitter to controller.
-                let path = if (tc.1 - cc.1).abs() < 1e-9 {
-                    vec![(tc.0 + rad.copysign(cc.0 - tc.0), tc.1), (cc.0 - rad.copysign(cc.0 - tc.0), cc.1)]
-                } else {
-                    let sy = (cc.1 - tc.1).signum();
-                    vec![(tc.0, tc.1 + sy * rad), (tc.0, cc.1), (cc.0 - rad.copysign(cc.0 - tc.0), cc.1)]
-                };
-                self.dashed_line(&path);
-                // Controller to actuator.
-                let out = if v.vertical {
-                    if (cc.1 - v.tip.1).abs() < 1e-9 {
-                        vec![(cc.0 - rad, cc.1), v.tip]
-                    } else {
-                        let sy = (v.tip.1 - cc.1).signum();
-                        vec![(cc.0, cc.1 + sy * rad), (cc.0, v.tip.1), v.tip]
-                    }
-                } else if (cc.0 - v.tip.0).abs() < 1e-9 {
-                    vec![(cc.0, cc.1 + rad), v.tip]
-                } else {
-                    let ym = (cc.1 + rad + v.tip.1) / 2.0;
-                    vec![(cc.0, cc.1 + rad), (cc.0, ym), (v.tip.0, ym), v.tip]
-                };
-                self.dashed_line(&out);
+            if let Some((cc, c_idx)) = self.bubble(cls, &letters, number, &cands) {
+                self.signal(tc, rad, (cc, rad), None, &[t_idx, c_idx]);
+                let arrive = if v.vertical { (-1.0, 0.0) } else { (0.0, 1.0) };
+                self.signal(cc, rad, (v.tip, 0.0), Some(arrive), &[c_idx, v.symbol]);
                 // An alarm on the controller, sometimes.
                 if self.rng.chance(0.45) {
                     let side = if self.rng.chance(0.5) { 1.0 } else { -1.0 };
-                    let cands = [(cc.0 + side * 20.0, cc.1), (cc.0 - side * 20.0, cc.1), (cc.0 + side * 26.0, cc.1 - 6.0)];
+                    let cands = [(cc.0 + side * 20.0, cc.1), (cc.0 - side * 20.0, cc.1), (cc.0 + side * 26.0, cc.1 - 8.0)];
                     let alarm = format!("{letter}{}", self.rng.pick(&["AH", "AL", "SH", "I", "R"]).expect("non-empty"));
-                    if let Some(ac) = self.bubble(Class::BubbleBoard, &alarm, &cands) {
-                        let sx = (ac.0 - cc.0).signum();
-                        if (ac.1 - cc.1).abs() < 1e-9 {
-                            self.dashed_line(&[(cc.0 + sx * rad, cc.1), (ac.0 - sx * rad, ac.1)]);
-                        } else {
-                            self.dashed_line(&[(cc.0 + sx * rad, cc.1), (ac.0, cc.1), (ac.0, ac.1 + rad)]);
-                        }
+                    if let Some((ac, a_idx)) = self.bubble(Class::BubbleBoard, &alarm, number, &cands) {
+                        self.signal(cc, rad, (ac, rad), None, &[c_idx, a_idx]);
                     }
                 }
             }
@@ -747,8 +729,122 @@ impl Builder<'_> {
         if let Some(p) = gauge_at {
             let cands = [(p.0 + 2.0, p.1 - 14.0), (p.0 + 8.0, p.1 - 16.0), (p.0 - 6.0, p.1 - 16.0), (p.0 + 12.0, p.1 - 22.0)];
             let letters = *self.rng.pick(&["PI", "PG", "TI", "PI"]).expect("non-empty");
-            if let Some(c) = self.bubble(Class::BubbleField, letters, &cands) {
+            let number = self.next_loop();
+            if let Some((c, _)) = self.bubble(Class::BubbleField, letters, number, &cands) {
                 self.thin_line(&[p, (p.0, c.1 + rad + 2.0), (c.0, c.1 + rad + 2.0), (c.0, c.1 + rad)], st.signal_line_mm);
+            }
+        }
+    }
+
+    /// The next loop number (three digits).
+    fn next_loop(&mut self) -> u32 {
+        self.loop_no += 1;
+        self.loop_no
+    }
+
+    /// Draws a dashed signal line from the bubble at `a` (radius `ar`) to point
+    /// `b.0` (reached `b.1` short of it) along the first orthogonal route that
+    /// crosses no labelled symbol but the two it joins; `arrive` forces the
+    /// direction of travel on the last leg. Returns false when no route is clear.
+    fn signal(
+        &mut self,
+        a: (f64, f64),
+        ar: f64,
+        b: ((f64, f64), f64),
+        arrive: Option<(f64, f64)>,
+        joins: &[usize],
+    ) -> bool {
+        let ((bx, by), br) = b;
+        let (dx, dy) = (bx - a.0, by - a.1);
+        let (sx, sy) = (dx.signum(), dy.signum());
+        let mut paths = Vec::new();
+        if dy.abs() < 1e-9 {
+            paths.push(vec![(a.0 + ar * sx, a.1), (bx - br * sx, by)]);
+        } else if dx.abs() < 1e-9 {
+            paths.push(vec![(a.0, a.1 + ar * sy), (bx, by - br * sy)]);
+        } else {
+            let (xm, ym) = ((a.0 + bx) / 2.0, (a.1 + by) / 2.0);
+            paths.push(vec![(a.0 + ar * sx, a.1), (bx, a.1), (bx, by - br * sy)]);
+            paths.push(vec![(a.0, a.1 + ar * sy), (a.0, by), (bx - br * sx, by)]);
+            paths.push(vec![(a.0, a.1 + ar * sy), (a.0, ym), (bx, ym), (bx, by - br * sy)]);
+            paths.push(vec![(a.0 + ar * sx, a.1), (xm, a.1), (xm, by), (bx - br * sx, by)]);
+        }
+        let syms: Vec<BBox> = self
+            .symbols
+            .iter()
+            .enumerate()
+            .filter(|(k, _)| !joins.contains(k))
+            .map(|(_, s)| s.bbox.scaled(1.0 / self.s))
+            .collect();
+        for path in paths {
+            let n = path.len();
+            let (p, q) = (path[n - 2], path[n - 1]);
+            if let Some((ux, uy)) = arrive {
+                let (lx, ly) = (q.0 - p.0, q.1 - p.1);
+                if lx * ux + ly * uy <= 0.0 || (lx * uy - ly * ux).abs() > 1e-9 {
+                    continue;
+                }
+            }
+            let clear = path.windows(2).all(|w| {
+                let bx = seg_box(w[0], w[1], self.st.signal_line_mm);
+                !syms.iter().any(|s| overlaps(s, &bx)) && self.area.contains_box(&bx)
+            });
+            if clear {
+                self.dashed_line(&path);
+                return true;
+            }
+        }
+        false
+    }
+
+    /// Extra single instruments (indicators, transmitters) on long process runs.
+    fn run_instruments(&mut self) {
+        let st = self.st;
+        let rad = st.bubble_diameter_mm / 2.0;
+        let runs = self.runs.clone();
+        for (a, b) in runs {
+            let horizontal = (a.1 - b.1).abs() < 1e-9;
+            let len = if horizontal { (b.0 - a.0).abs() } else { (b.1 - a.1).abs() };
+            if len < 30.0 || !self.rng.chance(0.5) {
+                continue;
+            }
+            let t = self.rng.range_f64(0.2, 0.8);
+            let p = (a.0 + (b.0 - a.0) * t, a.1 + (b.1 - a.1) * t);
+            let side = if self.rng.chance(0.5) { 1.0 } else { -1.0 };
+            let mut cands = Vec::new();
+            for off in [14.0, 17.0] {
+                for sgn in [side, -side] {
+                    cands.push(if horizontal { (p.0, p.1 + sgn * off) } else { (p.0 + sgn * off, p.1) });
+                }
+            }
+            let cls = if self.rng.chance(0.75) { Class::BubbleField } else { Class::BubbleBoard };
+            let first = *self.rng.pick(&['T', 'P', 'F', 'A', 'T', 'P']).expect("non-empty");
+            let fun = *self.rng.pick(&["I", "T", "I", "G"]).expect("non-empty");
+            let fun = if fun == "G" && first != 'P' { "I" } else { fun };
+            let letters = format!("{first}{fun}");
+            // Keep only candidates whose connection stub crosses nothing.
+            let cands: Vec<(f64, f64)> = cands
+                .into_iter()
+                .filter(|c| {
+                    let edge = if horizontal {
+                        (c.0, c.1 - rad * (c.1 - p.1).signum())
+                    } else {
+                        (c.0 - rad * (c.0 - p.0).signum(), c.1)
+                    };
+                    let stub = seg_box(p, edge, 0.3);
+                    !self.objects.iter().any(|o| overlaps(o, &stub))
+                })
+                .collect();
+            let number = self.loop_no + 1;
+            eprintln!("DBG run {a:?} {b:?} cands {}", cands.len());
+            if let Some((c, _)) = self.bubble(cls, &letters, number, &cands) {
+                self.loop_no = number;
+                let edge = if horizontal {
+                    (c.0, c.1 - rad * (c.1 - p.1).signum())
+                } else {
+                    (c.0 - rad * (c.0 - p.0).signum(), c.1)
+                };
+                self.thin_line(&[p, edge], st.signal_line_mm);
             }
         }
     }

@@ -194,6 +194,7 @@ impl Mask {
     }
 
     /// Number of ink pixels inside `[x0, x1) x [y0, y1)` (clipped to the mask).
+    #[cfg(test)]
     pub(crate) fn ink_in(&self, b: &BBox) -> usize {
         let (i0, j0, i1, j1) = self.clip(b);
         (j0..j1)
@@ -205,6 +206,7 @@ impl Mask {
     }
 
     /// The tight pixel bounds of the ink inside a box, as a box.
+    #[cfg(test)]
     pub(crate) fn ink_bounds_in(&self, b: &BBox) -> Option<BBox> {
         let (i0, j0, i1, j1) = self.clip(b);
         let (mut x0, mut y0, mut x1, mut y1) = (usize::MAX, usize::MAX, 0, 0);
@@ -222,6 +224,7 @@ impl Mask {
             .then(|| BBox::new(x0 as f64, y0 as f64, (x1 - x0) as f64, (y1 - y0) as f64))
     }
 
+    #[cfg(test)]
     fn clip(&self, b: &BBox) -> (usize, usize, usize, usize) {
         let cl = |v: f64, hi: u32| v.floor().clamp(0.0, f64::from(hi)) as usize;
         let cu = |v: f64, hi: u32| v.ceil().clamp(0.0, f64::from(hi)) as usize;

@@ -1,0 +1,606 @@
+//! Sheet-level evaluation: the figures an auditor reads.
+//!
+//! 1. [`prepare_sheets`] checks every box, score and class, and drops ground
+//!    truth and detections whose box centre lies in one of the sheet's ignore
+//!    regions.
+//! 2. [`sheet_outcomes`] matches each sheet on its own ([`crate::matching`]):
+//!    greedy by descending score to unmatched ground truth of the same class,
+//!    IoU >= 0.5 by default; duplicates are false positives.
+//! 3. Per class, the detections of all sheets are pooled into one ranked list
+//!    and its PR curve ([`crate::pr`]) gives AP all-point and 101-point
+//!    ([`crate::ap`]), F1-max and the operating points ([`crate::operating`]).
+//!
+//! "Overall" is defined two ways and both are reported:
+//! - **micro**: the detections of all classes pooled into one ranked list; a
+//!   detection is a true positive when it found a symbol of its own class, and
+//!   the recall denominator is all ground truth of all classes;
+//! - **mAP**: the unweighted mean of the per-class APs over the classes that
+//!   have at least one ground-truth symbol on the evaluated sheets (a class
+//!   with none has undefined AP and is left out, as in COCOeval).
+//!
+//! The IoU sweep repeats matching at `min_iou = 0.1, 0.2, ..., 0.9`. The
+//! operating threshold is chosen on the micro curve by an [`OperatingRule`];
+//! at it come the detection confusion table ([`crate::confusion`]) and the
+//! per-sheet table (true positives, false alarms, misses), so one bad scan
+//! cannot hide in an average. Calibration ([`crate::calibration`]) treats each
+//! detection's score as the probability that it is a true positive. The
+//! bootstrap ([`crate::bootstrap`]) resamples whole sheets; at the operating
+//! threshold it keeps the threshold fixed (chosen on all sheets), so its
+//! intervals show sheet-to-sheet variation, not the uncertainty of choosing
+//! the threshold.
+
+use crate::ap::{mean_defined, ApFigures};
+use crate::bootstrap::{interval_from, resample_indices, BootstrapConfig, Interval};
+use crate::calibration::{calibration, Calibration};
+use crate::confusion::{add_sheet_to_detection_table, empty_detection_table, ConfusionTable};
+use crate::error::{in_range, setting, EvalError, Result};
+use crate::matching::{match_sheet, outside_ignore, ClassedBox, MatchCriterion, ScoredBox};
+use crate::operating::{f1_max, precision_at_recall, recall_at_precision, OperatingPoint};
+use crate::pr::{f1, pr_curve, PrCurve};
+use serde::{Deserialize, Serialize};
+use std::collections::HashSet;
+use symtrust_labels::detections::Detection;
+use symtrust_labels::BBox;
+
+/// A ground-truth symbol as evaluation needs it.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct TruthSymbol {
+    /// Class name.
+    pub class: String,
+    /// Box in sheet pixels.
+    pub bbox: BBox,
+}
+
+/// One held-out sheet: its ground truth, its detections and its ignore regions.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SheetInput {
+    /// Sheet id.
+    pub sheet: String,
+    /// Accepted ground-truth symbols.
+    pub truths: Vec<TruthSymbol>,
+    /// The detector's output on this sheet.
+    pub detections: Vec<Detection>,
+    /// Regions (legend, title block) excluded from evaluation.
+    pub ignore: Vec<BBox>,
+}
+
+/// A sheet after checking, class lookup and ignore filtering.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct PreparedSheet {
+    /// Sheet id.
+    pub sheet: String,
+    /// Ground truth outside the ignore regions.
+    pub truths: Vec<ClassedBox>,
+    /// Detections outside the ignore regions.
+    pub dets: Vec<ScoredBox>,
+    /// Ground truth dropped by ignore regions.
+    pub ignored_truths: u64,
+    /// Detections dropped by ignore regions.
+    pub ignored_detections: u64,
+}
+
+fn class_index(what: impl Fn() -> String, class: &str, names: &[String]) -> Result<usize> {
+    names.iter().position(|n| n == class).ok_or_else(|| EvalError::UnknownClass {
+        what: what(),
+        class: class.to_string(),
+        known: names.to_vec(),
+    })
+}
+
+fn check_box(what: &dyn Fn() -> String, b: &BBox) -> Result<()> {
+    for v in [b.x, b.y, b.w, b.h] {
+        crate::error::finite(what, v)?;
+    }
+    if b.w <= 0.0 || b.h <= 0.0 {
+        return Err(EvalError::OutOfRange {
+            what: format!("{}: box size must be positive", what()),
+            value: b.w.min(b.h),
+            lo: f64::MIN_POSITIVE,
+            hi: f64::MAX,
+        });
+    }
+    Ok(())
+}
+
+/// Checks every sheet and applies its ignore regions (see the module comment).
+pub fn prepare_sheets(sheets: &[SheetInput], class_names: &[String]) -> Result<Vec<PreparedSheet>> {
+    if class_names.is_empty() {
+        return Err(EvalError::Empty { what: "class list".into() });
+    }
+    let mut seen = HashSet::new();
+    let mut out = Vec::with_capacity(sheets.len());
+    for s in sheets {
+        if !seen.insert(s.sheet.as_str()) {
+            return Err(EvalError::DuplicateSheet { sheet: s.sheet.clone() });
+        }
+        for (i, r) in s.ignore.iter().enumerate() {
+            check_box(&|| format!("sheet {:?}, ignore region #{i}", s.sheet), r)?;
+        }
+        let mut p = PreparedSheet {
+            sheet: s.sheet.clone(),
+            truths: Vec::new(),
+            dets: Vec::new(),
+            ignored_truths: 0,
+            ignored_detections: 0,
+        };
+        for (i, t) in s.truths.iter().enumerate() {
+            let what = || format!("sheet {:?}, ground-truth symbol #{i}", s.sheet);
+            check_box(&what, &t.bbox)?;
+            let class = class_index(what, &t.class, class_names)?;
+            if outside_ignore(&t.bbox, &s.ignore) {
+                p.truths.push(ClassedBox { class, bbox: t.bbox });
+            } else {
+                p.ignored_truths += 1;
+            }
+        }
+        for (i, d) in s.detections.iter().enumerate() {
+            if d.sheet != s.sheet {
+                return Err(EvalError::WrongSheet { sheet: s.sheet.clone(), index: i, found: d.sheet.clone() });
+            }
+            let what = || format!("sheet {:?}, detection #{i}", s.sheet);
+            check_box(&what, &d.bbox())?;
+            in_range(|| format!("sheet {:?}, detection #{i}, score", s.sheet), d.score, 0.0, 1.0)?;
+            let class = class_index(what, &d.class, class_names)?;
+            if outside_ignore(&d.bbox(), &s.ignore) {
+                p.dets.push(ScoredBox { class, score: d.score, bbox: d.bbox() });
+            } else {
+                p.ignored_detections += 1;
+            }
+        }
+        out.push(p);
+    }
+    Ok(out)
+}
+
+/// One matched detection.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct Outcome {
+    /// Class index.
+    pub class: usize,
+    /// Score.
+    pub score: f64,
+    /// Found a symbol of its class.
+    pub true_positive: bool,
+    /// A false positive on a symbol already found.
+    pub duplicate: bool,
+}
+
+/// The matching result of one sheet, all a metric needs.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SheetOutcomes {
+    /// Sheet id.
+    pub sheet: String,
+    /// Ground-truth count per class.
+    pub truths_per_class: Vec<u64>,
+    /// One entry per detection.
+    pub outcomes: Vec<Outcome>,
+}
+
+/// Matches one prepared sheet.
+pub fn sheet_outcomes(p: &PreparedSheet, n_classes: usize, criterion: &MatchCriterion) -> SheetOutcomes {
+    let a = match_sheet(&p.truths, &p.dets, criterion);
+    let mut truths_per_class = vec![0; n_classes];
+    for t in &p.truths {
+        truths_per_class[t.class] += 1;
+    }
+    let outcomes = p
+        .dets
+        .iter()
+        .enumerate()
+        .map(|(i, d)| Outcome {
+            class: d.class,
+            score: d.score,
+            true_positive: a.det_truth[i].is_some(),
+            duplicate: a.duplicate[i],
+        })
+        .collect();
+    SheetOutcomes { sheet: p.sheet.clone(), truths_per_class, outcomes }
+}
+
+/// The pooled PR curve of the sheets `idx` (repeats count again) for one class,
+/// or for all classes (micro) when `class` is `None`.
+pub fn pooled_curve(sheets: &[SheetOutcomes], idx: &[usize], class: Option<usize>) -> PrCurve {
+    let mut items = Vec::new();
+    let mut n_pos = 0;
+    for &i in idx {
+        let s = &sheets[i];
+        n_pos += match class {
+            Some(k) => s.truths_per_class[k],
+            None => s.truths_per_class.iter().sum(),
+        };
+        items.extend(
+            s.outcomes
+                .iter()
+                .filter(|o| class.is_none_or(|k| o.class == k))
+                .map(|o| (o.score, o.true_positive)),
+        );
+    }
+    pr_curve(&items, n_pos).expect("scores were checked and true positives never exceed ground truth")
+}
+
+/// Per-class all-point and 101-point APs of sheets `idx`, and their means.
+fn class_aps(sheets: &[SheetOutcomes], idx: &[usize], n_classes: usize) -> (Vec<ApFigures>, Option<f64>, Option<f64>) {
+    let aps: Vec<ApFigures> = (0..n_classes).map(|k| ApFigures::of(&pooled_curve(sheets, idx, Some(k)))).collect();
+    let m_all = mean_defined(aps.iter().map(|a| a.all_point));
+    let m_101 = mean_defined(aps.iter().map(|a| a.points_101));
+    (aps, m_all, m_101)
+}
+
+/// How the operating threshold is chosen (on the micro curve).
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum OperatingRule {
+    /// A threshold fixed by the user.
+    Fixed {
+        /// Keep detections scored at or above this.
+        threshold: f64,
+    },
+    /// The threshold maximising F1.
+    F1Max,
+    /// Highest recall with at least this precision.
+    TargetPrecision {
+        /// Required precision.
+        precision: f64,
+    },
+    /// Highest precision with at least this recall.
+    TargetRecall {
+        /// Required recall.
+        recall: f64,
+    },
+}
+
+/// Settings of [`evaluate_sheets`].
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SheetEvalConfig {
+    /// When a detection finds a symbol.
+    pub criterion: MatchCriterion,
+    /// How to pick the operating threshold.
+    pub operating: OperatingRule,
+    /// Recall for "precision at required recall".
+    pub required_recall: f64,
+    /// Precision for "recall at required precision".
+    pub required_precision: f64,
+    /// Bins of the reliability diagram.
+    pub calibration_bins: usize,
+    /// Bootstrap over sheets, or `None` to skip intervals.
+    pub bootstrap: Option<BootstrapConfig>,
+}
+
+impl Default for SheetEvalConfig {
+    /// IoU >= 0.5, F1-max operating point, 0.9 required recall and precision,
+    /// 10 calibration bins, 2000-replicate 95 % bootstrap (common practice).
+    fn default() -> Self {
+        Self {
+            criterion: MatchCriterion::default(),
+            operating: OperatingRule::F1Max,
+            required_recall: 0.9,
+            required_precision: 0.9,
+            calibration_bins: 10,
+            bootstrap: Some(BootstrapConfig::default()),
+        }
+    }
+}
+
+/// The figures of one ranked list (a class, or all classes pooled).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct CurveSummary {
+    /// Ground-truth symbols.
+    pub n_truths: u64,
+    /// Detections.
+    pub n_detections: u64,
+    /// PR curve.
+    pub pr: PrCurve,
+    /// AP all-point, 101-point and step sum.
+    pub ap: ApFigures,
+    /// Best F1.
+    pub f1_max: Option<OperatingPoint>,
+    /// Precision at the required recall.
+    pub precision_at_recall: Option<OperatingPoint>,
+    /// Recall at the required precision.
+    pub recall_at_precision: Option<OperatingPoint>,
+}
+
+fn summarise(pr: PrCurve, cfg: &SheetEvalConfig) -> Result<CurveSummary> {
+    Ok(CurveSummary {
+        n_truths: pr.n_positives,
+        n_detections: pr.points.last().map_or(0, |p| p.tp + p.fp),
+        ap: ApFigures::of(&pr),
+        f1_max: f1_max(&pr),
+        precision_at_recall: precision_at_recall(&pr, cfg.required_recall)?,
+        recall_at_precision: recall_at_precision(&pr, cfg.required_precision)?,
+        pr,
+    })
+}
+
+/// One class's figures.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ClassSummary {
+    /// Class name.
+    pub class: String,
+    /// Its figures.
+    pub figures: CurveSummary,
+}
+
+/// One row of the IoU sweep.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct IouSweepRow {
+    /// Matching threshold.
+    pub min_iou: f64,
+    /// Mean all-point AP over classes.
+    pub map_all_point: Option<f64>,
+    /// Mean 101-point AP over classes.
+    pub map_101: Option<f64>,
+    /// Micro all-point AP.
+    pub micro_ap_all_point: Option<f64>,
+}
+
+/// One sheet at the operating threshold.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SheetRow {
+    /// Sheet id.
+    pub sheet: String,
+    /// Ground-truth symbols (outside ignore regions).
+    pub n_truths: u64,
+    /// Detections kept at the threshold.
+    pub n_kept: u64,
+    /// Kept detections that found a symbol of their class.
+    pub true_positives: u64,
+    /// Kept detections that found none (includes duplicates).
+    pub false_alarms: u64,
+    /// Of the false alarms, duplicates of a found symbol.
+    pub duplicates: u64,
+    /// Symbols no kept detection found.
+    pub misses: u64,
+    /// `true_positives / n_kept`.
+    pub precision: Option<f64>,
+    /// `true_positives / n_truths`.
+    pub recall: Option<f64>,
+    /// Ground truth dropped by ignore regions.
+    pub ignored_truths: u64,
+    /// Detections dropped by ignore regions.
+    pub ignored_detections: u64,
+}
+
+/// Bootstrap intervals over sheets.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct TrustIntervals {
+    /// The bootstrap settings used.
+    pub config: BootstrapConfig,
+    /// mAP, all-point.
+    pub map_all_point: Interval,
+    /// mAP, 101-point.
+    pub map_101: Interval,
+    /// Micro AP, all-point.
+    pub micro_ap_all_point: Interval,
+    /// Per-class AP, all-point, in class order.
+    pub class_ap_all_point: Vec<Interval>,
+    /// Micro precision at the operating threshold.
+    pub precision_at_operating: Option<Interval>,
+    /// Micro recall at the operating threshold.
+    pub recall_at_operating: Option<Interval>,
+    /// Mean false alarms per sheet at the operating threshold.
+    pub false_alarms_per_sheet: Option<Interval>,
+    /// Mean misses per sheet at the operating threshold.
+    pub misses_per_sheet: Option<Interval>,
+}
+
+/// Everything measured on a set of held-out sheets.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SheetEvaluation {
+    /// Class names, in index order.
+    pub classes: Vec<String>,
+    /// Number of sheets.
+    pub n_sheets: u64,
+    /// The settings used.
+    pub config: SheetEvalConfig,
+    /// Figures per class.
+    pub per_class: Vec<ClassSummary>,
+    /// All classes pooled.
+    pub micro: CurveSummary,
+    /// Mean all-point AP over classes with ground truth.
+    pub map_all_point: Option<f64>,
+    /// Mean 101-point AP over classes with ground truth.
+    pub map_101: Option<f64>,
+    /// IoU sweep 0.1 to 0.9.
+    pub iou_sweep: Vec<IouSweepRow>,
+    /// The operating point (`None` when the rule cannot be met).
+    pub operating: Option<OperatingPoint>,
+    /// Detection confusion table at the operating threshold.
+    pub detection_confusion: Option<ConfusionTable>,
+    /// Per-sheet table at the operating threshold.
+    pub per_sheet: Option<Vec<SheetRow>>,
+    /// Calibration of detection scores as P(true positive); `None` without detections.
+    pub calibration: Option<Calibration>,
+    /// Bootstrap intervals, when asked for.
+    pub intervals: Option<TrustIntervals>,
+}
+
+fn choose_operating(micro: &PrCurve, rule: &OperatingRule) -> Result<Option<OperatingPoint>> {
+    match *rule {
+        OperatingRule::Fixed { threshold } => {
+            in_range(|| "operating threshold".into(), threshold, 0.0, 1.0)?;
+            let (tp, fp) = micro.at_threshold(threshold).map_or((0, 0), |p| (p.tp, p.fp));
+            let precision = if tp + fp > 0 { tp as f64 / (tp + fp) as f64 } else { 0.0 };
+            let recall = if micro.n_positives > 0 { tp as f64 / micro.n_positives as f64 } else { 0.0 };
+            Ok(Some(OperatingPoint { threshold, precision, recall, f1: f1(precision, recall) }))
+        }
+        OperatingRule::F1Max => Ok(f1_max(micro)),
+        OperatingRule::TargetPrecision { precision } => recall_at_precision(micro, precision),
+        OperatingRule::TargetRecall { recall } => precision_at_recall(micro, recall),
+    }
+}
+
+/// Counts of one sheet at a threshold: (kept, true positives, duplicates, ground truth).
+fn counts_at(s: &SheetOutcomes, threshold: f64) -> (u64, u64, u64, u64) {
+    let kept: Vec<&Outcome> = s.outcomes.iter().filter(|o| o.score >= threshold).collect();
+    let tp = kept.iter().filter(|o| o.true_positive).count() as u64;
+    let dup = kept.iter().filter(|o| o.duplicate).count() as u64;
+    (kept.len() as u64, tp, dup, s.truths_per_class.iter().sum())
+}
+
+fn ratio(a: u64, b: u64) -> Option<f64> {
+    (b > 0).then(|| a as f64 / b as f64)
+}
+
+/// Evaluates held-out sheets (see the module comment).
+pub fn evaluate_sheets(sheets: &[SheetInput], class_names: &[String], cfg: &SheetEvalConfig) -> Result<SheetEvaluation> {
+    cfg.criterion.validate()?;
+    in_range(|| "required recall".into(), cfg.required_recall, 0.0, 1.0)?;
+    in_range(|| "required precision".into(), cfg.required_precision, 0.0, 1.0)?;
+    if cfg.calibration_bins == 0 {
+        return Err(setting("calibration_bins", "needs at least one bin"));
+    }
+    if sheets.is_empty() {
+        return Err(EvalError::Empty { what: "held-out sheets".into() });
+    }
+    if let Some(b) = &cfg.bootstrap {
+        b.validate()?;
+    }
+    let n = class_names.len();
+    let prepared = prepare_sheets(sheets, class_names)?;
+    let outcomes: Vec<SheetOutcomes> = prepared.iter().map(|p| sheet_outcomes(p, n, &cfg.criterion)).collect();
+    let all: Vec<usize> = (0..outcomes.len()).collect();
+
+    let mut per_class = Vec::with_capacity(n);
+    for (k, name) in class_names.iter().enumerate() {
+        per_class.push(ClassSummary { class: name.clone(), figures: summarise(pooled_curve(&outcomes, &all, Some(k)), cfg)? });
+    }
+    let micro = summarise(pooled_curve(&outcomes, &all, None), cfg)?;
+    let map_all_point = mean_defined(per_class.iter().map(|c| c.figures.ap.all_point));
+    let map_101 = mean_defined(per_class.iter().map(|c| c.figures.ap.points_101));
+
+    let iou_sweep = (1..=9)
+        .map(|i| {
+            let min_iou = f64::from(i) / 10.0;
+            let crit = MatchCriterion::Iou { min_iou };
+            let o: Vec<SheetOutcomes> = prepared.iter().map(|p| sheet_outcomes(p, n, &crit)).collect();
+            let (_, m_all, m_101) = class_aps(&o, &all, n);
+            IouSweepRow { min_iou, map_all_point: m_all, map_101: m_101, micro_ap_all_point: ApFigures::of(&pooled_curve(&o, &all, None)).all_point }
+        })
+        .collect();
+
+    let operating = choose_operating(&micro.pr, &cfg.operating)?;
+    let (detection_confusion, per_sheet) = match operating {
+        Some(op) => {
+            let mut table = empty_detection_table(class_names);
+            let mut rows = Vec::with_capacity(prepared.len());
+            for (p, o) in prepared.iter().zip(&outcomes) {
+                add_sheet_to_detection_table(&mut table, &p.truths, &p.dets, &cfg.criterion, op.threshold);
+                let (kept, tp, dup, n_truths) = counts_at(o, op.threshold);
+                rows.push(SheetRow {
+                    sheet: p.sheet.clone(),
+                    n_truths,
+                    n_kept: kept,
+                    true_positives: tp,
+                    false_alarms: kept - tp,
+                    duplicates: dup,
+                    misses: n_truths - tp,
+                    precision: ratio(tp, kept),
+                    recall: ratio(tp, n_truths),
+                    ignored_truths: p.ignored_truths,
+                    ignored_detections: p.ignored_detections,
+                });
+            }
+            (Some(table), Some(rows))
+        }
+        None => (None, None),
+    };
+
+    let scored: Vec<(f64, bool)> = outcomes.iter().flat_map(|s| s.outcomes.iter().map(|o| (o.score, o.true_positive))).collect();
+    let calibration = if scored.is_empty() { None } else { Some(calibration(&scored, cfg.calibration_bins)?) };
+
+    let intervals = match &cfg.bootstrap {
+        Some(b) => Some(sheet_intervals(&outcomes, n, operating.map(|o| o.threshold), b, &micro, map_all_point, map_101, &per_class)?),
+        None => None,
+    };
+
+    Ok(SheetEvaluation {
+        classes: class_names.to_vec(),
+        n_sheets: sheets.len() as u64,
+        config: cfg.clone(),
+        per_class,
+        micro,
+        map_all_point,
+        map_101,
+        iou_sweep,
+        operating,
+        detection_confusion,
+        per_sheet,
+        calibration,
+        intervals,
+    })
+}
+
+#[allow(clippy::too_many_arguments)]
+fn sheet_intervals(
+    outcomes: &[SheetOutcomes],
+    n: usize,
+    threshold: Option<f64>,
+    b: &BootstrapConfig,
+    micro: &CurveSummary,
+    map_all: Option<f64>,
+    map_101: Option<f64>,
+    per_class: &[ClassSummary],
+) -> Result<TrustIntervals> {
+    let draws = resample_indices(outcomes.len(), b)?;
+    let mut r_map_all = Vec::with_capacity(draws.len());
+    let mut r_map_101 = Vec::with_capacity(draws.len());
+    let mut r_micro = Vec::with_capacity(draws.len());
+    let mut r_class = vec![Vec::with_capacity(draws.len()); n];
+    let mut r_op: [Vec<Option<f64>>; 4] = Default::default();
+    for idx in &draws {
+        let (aps, m_all, m_101) = class_aps(outcomes, idx, n);
+        r_map_all.push(m_all);
+        r_map_101.push(m_101);
+        for (k, a) in aps.iter().enumerate() {
+            r_class[k].push(a.all_point);
+        }
+        r_micro.push(ApFigures::of(&pooled_curve(outcomes, idx, None)).all_point);
+        if let Some(t) = threshold {
+            let (mut kept, mut tp, mut truths) = (0, 0, 0);
+            for &i in idx {
+                let (k, p, _, g) = counts_at(&outcomes[i], t);
+                kept += k;
+                tp += p;
+                truths += g;
+            }
+            let sheets = idx.len() as f64;
+            r_op[0].push(ratio(tp, kept));
+            r_op[1].push(ratio(tp, truths));
+            r_op[2].push(Some((kept - tp) as f64 / sheets));
+            r_op[3].push(Some((truths - tp) as f64 / sheets));
+        }
+    }
+    let op_estimate = threshold.map(|t| {
+        let (mut kept, mut tp, mut truths) = (0, 0, 0);
+        for o in outcomes {
+            let (k, p, _, g) = counts_at(o, t);
+            kept += k;
+            tp += p;
+            truths += g;
+        }
+        let sheets = outcomes.len() as f64;
+        [ratio(tp, kept), ratio(tp, truths), Some((kept - tp) as f64 / sheets), Some((truths - tp) as f64 / sheets)]
+    });
+    let op = |j: usize| -> Result<Option<Interval>> {
+        match op_estimate {
+            Some(e) => Ok(Some(interval_from(e[j], &r_op[j], b.level)?)),
+            None => Ok(None),
+        }
+    };
+    Ok(TrustIntervals {
+        config: *b,
+        map_all_point: interval_from(map_all, &r_map_all, b.level)?,
+        map_101: interval_from(map_101, &r_map_101, b.level)?,
+        micro_ap_all_point: interval_from(micro.ap.all_point, &r_micro, b.level)?,
+        class_ap_all_point: per_class
+            .iter()
+            .zip(&r_class)
+            .map(|(c, r)| interval_from(c.figures.ap.all_point, r, b.level))
+            .collect::<Result<_>>()?,
+        precision_at_operating: op(0)?,
+        recall_at_operating: op(1)?,
+        false_alarms_per_sheet: op(2)?,
+        misses_per_sheet: op(3)?,
+    })
+}

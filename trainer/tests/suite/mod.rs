@@ -1,0 +1,9 @@
+//! The test modules and their shared helpers.
+
+pub mod library;
+
+mod bad_input;
+mod digits;
+mod gradients;
+mod score_map;
+mod training;
