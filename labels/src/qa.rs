@@ -991,8 +991,8 @@ mod tests {
             got,
             vec![
                 ("labels/fp-2.json".to_string(), Code::DocumentUnparsable),
-                ("labels/fp-3.json".to_string(), Code::BoxOutsideSheet),
                 ("labels/fp-3.json".to_string(), Code::SheetMissing),
+                ("labels/fp-3.json".to_string(), Code::BoxOutsideSheet),
             ]
         );
         assert!(report.findings[0].message.contains("line 3"), "{}", report.findings[0].message);

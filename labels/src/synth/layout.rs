@@ -805,7 +805,7 @@ impl Builder<'_> {
         for (a, b) in runs {
             let horizontal = (a.1 - b.1).abs() < 1e-9;
             let len = if horizontal { (b.0 - a.0).abs() } else { (b.1 - a.1).abs() };
-            if len < 30.0 || !self.rng.chance(0.5) {
+            if len < 30.0 || !self.rng.chance(0.75) {
                 continue;
             }
             let t = self.rng.range_f64(0.2, 0.8);
@@ -836,7 +836,6 @@ impl Builder<'_> {
                 })
                 .collect();
             let number = self.loop_no + 1;
-            eprintln!("DBG run {a:?} {b:?} cands {}", cands.len());
             if let Some((c, _)) = self.bubble(cls, &letters, number, &cands) {
                 self.loop_no = number;
                 let edge = if horizontal {

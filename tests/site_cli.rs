@@ -1,0 +1,214 @@
+//! End to end: `init`, `synth`, `sheets add`, `crops build`, `demo` and their bad input.
+
+mod util;
+
+use std::path::Path;
+use util::{drawing, snapshot, symtrust, synthetic_site};
+
+fn init_site(dir: &Path) -> std::path::PathBuf {
+    symtrust(dir, &["init", "site", "--quiet"]).expect_code(0);
+    dir.join("site")
+}
+
+#[test]
+fn init_creates_a_site_and_refuses_to_overwrite_one() {
+    let tmp = tempfile::tempdir().unwrap();
+    let site = init_site(tmp.path());
+    assert!(site.join("site.toml").is_file());
+    assert!(site.join("sheets").is_dir() && site.join("labels").is_dir());
+    let text = std::fs::read_to_string(site.join("site.toml")).unwrap();
+    assert!(text.contains("window = 100") && text.contains("dpi = 200.0"), "{text}");
+    let again = symtrust(tmp.path(), &["init", "site"]).expect_code(2);
+    assert!(again.stderr.contains("already exists"), "{}", again.stderr);
+}
+
+#[test]
+fn a_folder_that_is_not_a_site_is_named() {
+    let tmp = tempfile::tempdir().unwrap();
+    let run = symtrust(tmp.path(), &["crops", "build", "--site", "nowhere"]).expect_code(2);
+    assert!(
+        run.stderr.contains("nowhere") && run.stderr.contains("not a symtrust site"),
+        "{}",
+        run.stderr
+    );
+}
+
+#[test]
+fn sheets_add_records_resolution_and_resamples() {
+    let tmp = tempfile::tempdir().unwrap();
+    let site = init_site(tmp.path());
+    // 400 x 300 px at 400 dpi -> 200 x 150 px at the site's 200 dpi.
+    let png = symtrust_labels::raster::encode_png_with_dpi(&drawing(400, 300), 400.0).unwrap();
+    std::fs::write(tmp.path().join("hi-res.png"), png).unwrap();
+    // A JPEG without a density: the site default is assumed, and said so.
+    image::DynamicImage::ImageLuma8(drawing(120, 100))
+        .save(tmp.path().join("photo.jpg"))
+        .unwrap();
+    let run = symtrust(
+        tmp.path(),
+        &["sheets", "add", "--site", "site", "hi-res.png", "photo.jpg", "--json"],
+    )
+    .expect_code(0);
+    let v = run.json();
+    let hi = &v["results"][0]["sheet"];
+    assert_eq!((hi["width"].as_u64(), hi["height"].as_u64()), (Some(200), Some(150)));
+    assert_eq!(hi["dpi_source"], "file_metadata");
+    let jpg = &v["results"][1]["sheet"];
+    assert_eq!(jpg["dpi_source"], "site_default");
+    assert!(site.join("sheets/hi-res.png").is_file());
+    assert!(site.join("labels/photo.json").is_file());
+    // Adding the same file again changes nothing.
+    let before = snapshot(&site.join("labels"));
+    let again = symtrust(tmp.path(), &["sheets", "add", "--site", "site", "hi-res.png"]).expect_code(0);
+    assert!(again.stderr.contains("already registered"), "{}", again.stderr);
+    assert_eq!(snapshot(&site.join("labels")), before);
+}
+
+#[test]
+fn sheets_add_refuses_bad_images_by_name_and_keeps_the_good_ones() {
+    let tmp = tempfile::tempdir().unwrap();
+    let site = init_site(tmp.path());
+    let good = symtrust_labels::raster::encode_png_with_dpi(&drawing(200, 200), 200.0).unwrap();
+    std::fs::write(tmp.path().join("good.png"), &good).unwrap();
+    std::fs::write(tmp.path().join("cut.png"), &good[..good.len() / 2]).unwrap();
+    std::fs::write(tmp.path().join("junk.tif"), b"II*\0 this is not really a tiff").unwrap();
+    std::fs::write(tmp.path().join("bad name!.png"), &good).unwrap();
+    let run = symtrust(
+        tmp.path(),
+        &["sheets", "add", "--site", "site", "good.png", "cut.png", "junk.tif", "bad name!.png", "missing.png"],
+    )
+    .expect_code(2);
+    for name in ["cut.png", "junk.tif", "bad name!.png", "missing.png"] {
+        assert!(run.stderr.contains(name), "{name} not named:\n{}", run.stderr);
+    }
+    assert!(run.stderr.contains("4 of 5 files were not registered"), "{}", run.stderr);
+    let labels: Vec<_> = std::fs::read_dir(site.join("labels"))
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+        .filter(|n| n.ends_with(".json") && !n.starts_with('.'))
+        .collect();
+    assert_eq!(labels, vec!["good.json"]);
+    let sheets: Vec<_> = std::fs::read_dir(site.join("sheets")).unwrap().collect();
+    assert_eq!(sheets.len(), 1, "only the good sheet is copied");
+}
+
+#[test]
+fn sheets_add_refuses_an_absurdly_large_image_before_decoding() {
+    let tmp = tempfile::tempdir().unwrap();
+    let site = init_site(tmp.path());
+    let toml = std::fs::read_to_string(site.join("site.toml")).unwrap();
+    std::fs::write(
+        site.join("site.toml"),
+        toml.replace("max_sheet_pixels = 600000000", "max_sheet_pixels = 10000"),
+    )
+    .unwrap();
+    let png = symtrust_labels::raster::encode_png_with_dpi(&drawing(200, 100), 200.0).unwrap();
+    std::fs::write(tmp.path().join("big.png"), png).unwrap();
+    let run = symtrust(tmp.path(), &["sheets", "add", "--site", "site", "big.png"]).expect_code(2);
+    assert!(run.stderr.contains("big.png") && run.stderr.contains("exceeds the limit"), "{}", run.stderr);
+}
+
+#[test]
+fn synth_then_crops_build_keeps_held_out_sheets_out() {
+    let tmp = tempfile::tempdir().unwrap();
+    let site = synthetic_site(tmp.path());
+    let config = std::fs::read_to_string(site.join("site.toml")).unwrap();
+    assert!(config.contains("held_out = [\"fp-a-0002\"]"), "{config}");
+    let run = symtrust(tmp.path(), &["crops", "build", "--site", "site", "--json"]).expect_code(0);
+    let v = run.json();
+    let dir = Path::new(v["dir"].as_str().unwrap());
+    let dir = if dir.is_absolute() { dir.to_path_buf() } else { tmp.path().join(dir) };
+    let index = std::fs::read_to_string(dir.join("index.csv")).unwrap();
+    let rows: Vec<&str> = index.lines().skip(1).collect();
+    assert!(rows.len() > 100, "{} crops", rows.len());
+    assert!(rows.iter().all(|r| !r.contains("fp-a-0002")), "a held-out sheet gave a crop");
+    assert!(rows.iter().any(|r| r.contains(",positive,")) && rows.iter().any(|r| r.contains(",negative,")));
+    assert!(v["counts"]["positive"].as_u64().unwrap() > 0);
+    // The crops are real windows: positives hold ink, files match their hashes.
+    let lib = symtrust_labels::crops::CropLibrary::open(&dir).unwrap();
+    for r in lib.records.iter().step_by(25) {
+        let px = lib.load_pixels(r).unwrap();
+        assert_eq!(px.len(), 100 * 100);
+        assert!(px.iter().any(|p| *p < 128), "{} has no ink", r.file);
+    }
+    // A second build with the same labels and seed reuses the same library.
+    let again = symtrust(tmp.path(), &["crops", "build", "--site", "site", "--json"]).expect_code(0);
+    assert_eq!(again.json()["id"], v["id"]);
+    assert_eq!(again.json()["reused"], true);
+}
+
+fn crops_build_fails_cleanly(site: &Path, tmp: &Path, expect: &[&str]) {
+    let before = snapshot(site);
+    let run = symtrust(tmp, &["crops", "build", "--site", "site"]).expect_code(2);
+    for e in expect {
+        assert!(run.stderr.contains(e), "missing {e:?} in:\n{}", run.stderr);
+    }
+    assert_eq!(snapshot(site), before, "a failed build changed the site");
+}
+
+#[test]
+fn crops_build_refuses_a_truncated_label_document_with_its_line() {
+    let tmp = tempfile::tempdir().unwrap();
+    let site = synthetic_site(tmp.path());
+    let doc = site.join("labels/fp-a-0001.json");
+    let text = std::fs::read_to_string(&doc).unwrap();
+    std::fs::write(&doc, &text[..text.len() / 3]).unwrap();
+    crops_build_fails_cleanly(&site, tmp.path(), &["fp-a-0001.json:"]);
+}
+
+#[test]
+fn crops_build_refuses_a_document_for_a_missing_sheet() {
+    let tmp = tempfile::tempdir().unwrap();
+    let site = synthetic_site(tmp.path());
+    std::fs::remove_file(site.join("sheets/fp-a-0000.png")).unwrap();
+    crops_build_fails_cleanly(&site, tmp.path(), &["fp-a-0000.png"]);
+}
+
+fn edit_first_symbol(site: &Path, f: impl Fn(&mut serde_json::Value)) {
+    let path = site.join("labels/fp-a-0000.json");
+    let mut v: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&path).unwrap()).unwrap();
+    f(&mut v["symbols"][0]);
+    std::fs::write(&path, serde_json::to_string_pretty(&v).unwrap()).unwrap();
+}
+
+#[test]
+fn crops_build_refuses_an_unknown_class() {
+    let tmp = tempfile::tempdir().unwrap();
+    let site = synthetic_site(tmp.path());
+    edit_first_symbol(&site, |s| s["class"] = "gate_valve".into());
+    crops_build_fails_cleanly(&site, tmp.path(), &["fp-a-0000.json", "s0001", "gate_valve"]);
+}
+
+#[test]
+fn crops_build_refuses_a_box_partly_outside_the_sheet() {
+    let tmp = tempfile::tempdir().unwrap();
+    let site = synthetic_site(tmp.path());
+    edit_first_symbol(&site, |s| s["box"]["x"] = 3300.0.into());
+    crops_build_fails_cleanly(&site, tmp.path(), &["fp-a-0000.json", "s0001", "outside"]);
+}
+
+#[test]
+fn crops_build_refuses_a_changed_sheet() {
+    let tmp = tempfile::tempdir().unwrap();
+    let site = synthetic_site(tmp.path());
+    let other = std::fs::read(site.join("sheets/fp-a-0001.png")).unwrap();
+    std::fs::write(site.join("sheets/fp-a-0000.png"), other).unwrap();
+    crops_build_fails_cleanly(&site, tmp.path(), &["fp-a-0000.png", "SHA-256"]);
+}
+
+#[test]
+fn every_command_has_help_with_an_example() {
+    let tmp = tempfile::tempdir().unwrap();
+    for cmd in [
+        vec!["init", "--help"],
+        vec!["synth", "--help"],
+        vec!["sheets", "add", "--help"],
+        vec!["crops", "build", "--help"],
+        vec!["demo", "--help"],
+    ] {
+        let run = symtrust(tmp.path(), &cmd).expect_code(0);
+        assert!(run.stdout.contains("Example"), "{cmd:?}:\n{}", run.stdout);
+    }
+    let bad = symtrust(tmp.path(), &["crops", "bake"]).expect_code(2);
+    assert!(bad.stderr.contains("bake"));
+}

@@ -1,0 +1,91 @@
+//! External check: the optical handwritten digits data set (UCI "Optical
+//! Recognition of Handwritten Digits", test half: 1797 images of 8 x 8, values
+//! 0-16), as bundled with scikit-learn (`sklearn.datasets.load_digits`) and
+//! embedded by `smartcore` 0.4 (`smartcore::dataset::digits`).
+//!
+//! Split as the scikit-learn example "Recognizing hand-written digits" does:
+//! first half train, second half test, no shuffle. That example reports an
+//! accuracy of 0.97 for an RBF support vector machine on this split (from
+//! memory, scikit-learn 1.x documentation); the default architecture must
+//! reach at least that on the held-out half.
+//!
+//! What this test chooses, and why: images are upsampled 4x (nearest
+//! neighbour) to a 32 x 32 window instead of the site default 100, because the
+//! stock Candle kernels train the default network at about 24 windows/s on two
+//! cores at 100 x 100 and CI has minutes, not an hour; the default layer
+//! widths, kernels, hidden size and dropout are kept (at 32 pixels the last
+//! feature map is 1 x 1). The last 90 images of the training half are used for
+//! early stopping, so the test half is never seen before the final score.
+
+use symtrust_labels::site::ModelSettings;
+use symtrust_trainer::data::DataSource;
+use symtrust_trainer::train::Silent;
+use symtrust_trainer::{Architecture, Classifier, Dataset, Sample, TrainOptions, train};
+
+const UP: usize = 4;
+const SIDE: usize = 8 * UP;
+
+/// 8-bit window (paper 255, ink 0) from a digits row (0 = paper, 16 = full ink).
+fn window(row: &[f32]) -> Vec<u8> {
+    let mut out = vec![0u8; SIDE * SIDE];
+    for y in 0..SIDE {
+        for x in 0..SIDE {
+            let v = row[(y / UP) * 8 + x / UP];
+            out[y * SIDE + x] = 255 - (v * 255.0 / 16.0).round() as u8;
+        }
+    }
+    out
+}
+
+#[test]
+fn digits_held_out_accuracy_reaches_the_scikit_learn_example() {
+    let ds = smartcore::dataset::digits::load_dataset();
+    assert_eq!((ds.num_samples, ds.num_features), (1797, 64));
+    // scikit-learn's load_digits().target starts 0, 1, ..., 9 (from memory).
+    let first: Vec<usize> = ds.target[..10].iter().map(|t| *t as usize).collect();
+    assert_eq!(first, (0..10).collect::<Vec<_>>());
+    let samples: Vec<Sample> = (0..ds.num_samples)
+        .map(|i| Sample {
+            pixels: window(&ds.data[i * 64..(i + 1) * 64]),
+            class: ds.target[i] as usize,
+        })
+        .collect();
+    let half = ds.num_samples / 2; // 898, as `train_test_split(..., test_size=0.5, shuffle=False)`
+    let (train_half, test_half) = samples.split_at(half);
+    let (fit, early_stop) = train_half.split_at(half - 90);
+    let data = Dataset {
+        classes: (0..10).map(|d| d.to_string()).collect(),
+        rotatable: vec![false; 10],
+        window: SIDE,
+        train: fit.to_vec(),
+        validation: early_stop.to_vec(),
+        source: DataSource {
+            crop_library: "uci-optdigits-sklearn-load_digits".to_string(),
+            manifest_sha256: String::new(),
+            index_sha256: String::new(),
+            dpi: 0.0,
+        },
+    };
+    let arch = Architecture::from_settings(&ModelSettings::default(), SIDE, 10).unwrap();
+    let opts = TrainOptions {
+        epochs: 15,
+        batch_size: 32,
+        learning_rate: 2e-3,
+        weight_decay: 1e-4,
+        patience: 5,
+        seed: 1,
+        augment: true,
+    };
+    let outcome = train(&data, &arch, &opts, None, false, &mut Silent).unwrap();
+    let clf = Classifier::from_network(outcome.network, data.classes.clone()).unwrap();
+    let windows: Vec<&[u8]> = test_half.iter().map(|s| s.pixels.as_slice()).collect();
+    let probs = clf.classify(&windows).unwrap();
+    let right = probs
+        .iter()
+        .zip(test_half)
+        .filter(|(p, s)| symtrust_trainer::train::argmax(p) == s.class)
+        .count();
+    let accuracy = right as f64 / test_half.len() as f64;
+    eprintln!("digits: held-out accuracy {accuracy:.4} after {} epochs", outcome.epochs_run);
+    assert!(accuracy >= 0.97, "held-out accuracy {accuracy:.4} < 0.97");
+}

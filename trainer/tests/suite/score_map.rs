@@ -1,0 +1,171 @@
+//! The fully-convolutional score map against its naive twin (classifying each
+//! window on its own), over random weights and random sheets, and the pixel
+//! alignment of grid cells at the sheet edges.
+
+use candle_core::DType;
+use proptest::prelude::*;
+use symtrust_labels::SeededRng;
+use symtrust_labels::site::ModelSettings;
+use symtrust_trainer::model::Network;
+use symtrust_trainer::scoremap::grid_size;
+use symtrust_trainer::{Architecture, Classifier, ScoreMap, ScoreMapOptions};
+
+fn classifier(arch: &Architecture, seed: u64) -> Classifier {
+    let names = (0..arch.classes).map(|i| format!("c{i}")).collect();
+    Classifier::from_network(Network::init(arch, seed, DType::F32).unwrap(), names).unwrap()
+}
+
+/// A random sheet: noise plus a few dark strokes, so ReLUs and pools vary.
+fn sheet(width: usize, height: usize, seed: u64) -> Vec<u8> {
+    let mut rng = SeededRng::new(seed);
+    let mut px: Vec<u8> = (0..width * height).map(|_| 200 + rng.below(56) as u8).collect();
+    for _ in 0..(width + height) / 6 {
+        let (x, y) = (rng.below(width as u64) as usize, rng.below(height as u64) as usize);
+        let len = rng.below(20) as usize;
+        for d in 0..len {
+            if rng.chance(0.5) && x + d < width {
+                px[y * width + x + d] = rng.below(60) as u8;
+            } else if y + d < height {
+                px[(y + d) * width + x] = rng.below(60) as u8;
+            }
+        }
+    }
+    px
+}
+
+fn crop(px: &[u8], width: usize, x: usize, y: usize, side: usize) -> Vec<u8> {
+    (y..y + side).flat_map(|r| px[r * width + x..r * width + x + side].iter().copied()).collect()
+}
+
+/// Asserts every cell equals the per-window classification of its window.
+fn assert_matches_naive(clf: &Classifier, px: &[u8], width: usize, height: usize, map: &ScoreMap) {
+    let side = clf.window();
+    assert_eq!((map.cols, map.rows), grid_size(width, height, side, map.stride));
+    let mut windows = Vec::new();
+    for r in 0..map.rows {
+        for c in 0..map.cols {
+            let (x, y) = map.window_origin(r, c);
+            assert!(x + side <= width && y + side <= height, "cell ({r}, {c}) is inside the sheet");
+            windows.push(crop(px, width, x, y, side));
+        }
+    }
+    let refs: Vec<&[u8]> = windows.iter().map(Vec::as_slice).collect();
+    let naive = clf.classify(&refs).unwrap();
+    for r in 0..map.rows {
+        for c in 0..map.cols {
+            let want = &naive[r * map.cols + c];
+            for (k, (a, b)) in map.cell(r, c).iter().zip(want).enumerate() {
+                assert!((a - b).abs() <= 1e-4, "cell ({r}, {c}) class {k}: map {a} vs window {b}");
+            }
+        }
+    }
+}
+
+fn two_layer() -> Architecture {
+    Architecture {
+        window: 20,
+        conv_channels: vec![3, 5],
+        conv_kernels: vec![3, 3],
+        hidden: 7,
+        dropout: 0.0,
+        classes: 3,
+    }
+}
+
+fn three_layer() -> Architecture {
+    // 37 -3+1 = 35 -> 17 -3+1 = 15 -> 7 -3+1 = 5 -> 2: odd sides drop a row when pooling.
+    Architecture {
+        window: 37,
+        conv_channels: vec![4, 4, 6],
+        conv_kernels: vec![3, 3, 3],
+        hidden: 9,
+        dropout: 0.0,
+        classes: 4,
+    }
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig { cases: 24, ..ProptestConfig::default() })]
+
+    #[test]
+    fn score_map_equals_per_window_classification(
+        weight_seed in 0u64..1000,
+        image_seed in 0u64..1000,
+        deep in any::<bool>(),
+        extra_w in 0usize..30,
+        extra_h in 0usize..30,
+        stride_div in 0u32..3,
+        tile_cells in prop::sample::select(vec![1usize, 2, 3, 64]),
+    ) {
+        let arch = if deep { three_layer() } else { two_layer() };
+        let clf = classifier(&arch, weight_seed);
+        let (w, h) = (arch.window + extra_w, arch.window + extra_h);
+        let px = sheet(w, h, image_seed);
+        let stride = arch.native_stride() >> stride_div;
+        let map = clf.score_map(&px, w, h, &ScoreMapOptions { stride, tile_cells }).unwrap();
+        assert_matches_naive(&clf, &px, w, h, &map);
+    }
+}
+
+#[test]
+fn default_network_score_map_matches_and_aligns_at_the_edges() {
+    // Default architecture on a 100-pixel window, native stride 8. Width 100 + 3*8 + 7:
+    // four columns (x = 0, 8, 16, 24); x = 32 would end at 132 > 131.
+    let arch = Architecture::from_settings(&ModelSettings::default(), 100, 3).unwrap();
+    let clf = classifier(&arch, 5);
+    let (w, h) = (131, 108);
+    let px = sheet(w, h, 6);
+    let map = clf.score_map(&px, w, h, &ScoreMapOptions::native(&clf)).unwrap();
+    assert_eq!((map.cols, map.rows), (4, 2));
+    assert_eq!(map.window_origin(1, 3), (24, 8));
+    assert_matches_naive(&clf, &px, w, h, &map);
+    let fine = clf.score_map(&px, w, h, &ScoreMapOptions { stride: 2, tile_cells: 1 }).unwrap();
+    assert_eq!((fine.cols, fine.rows), (16, 5));
+    assert_matches_naive(&clf, &px, w, h, &fine);
+    // Cells shared by both grids agree: fine (r, c) at 4x the native index.
+    for r in 0..map.rows {
+        for c in 0..map.cols {
+            for (a, b) in map.cell(r, c).iter().zip(fine.cell(4 * r, 4 * c)) {
+                assert!((a - b).abs() <= 1e-5);
+            }
+        }
+    }
+}
+
+#[test]
+fn the_bottom_right_cell_sees_the_last_pixels_and_nothing_beyond() {
+    // Ink only in the bottom-right corner pixel block: only cells whose windows
+    // reach it may differ from a blank sheet's scores.
+    // Window 46: 44 -> 22 -> 20 -> 10 -> 8 -> 4, even at every pooling, so every
+    // pixel of the window reaches the features (hand calculation).
+    let arch = Architecture { window: 46, ..three_layer() };
+    let clf = classifier(&arch, 11);
+    let (w, h) = (46 + 16, 46 + 8); // exact multiples: last window ends on the last pixel
+    let mut px = vec![255u8; w * h];
+    for y in h - 3..h {
+        for x in w - 3..w {
+            px[y * w + x] = 0;
+        }
+    }
+    let map = clf.score_map(&px, w, h, &ScoreMapOptions::native(&clf)).unwrap();
+    assert_eq!((map.cols, map.rows), (3, 2));
+    let blank = clf.classify(&[&vec![255u8; 46 * 46]]).unwrap().remove(0);
+    let corner = map.cell(1, 2);
+    assert!(corner.iter().zip(&blank).any(|(a, b)| (a - b).abs() > 1e-6), "corner cell sees the ink");
+    for (r, c) in [(0, 0), (0, 2), (1, 0), (1, 1)] {
+        for (a, b) in map.cell(r, c).iter().zip(&blank) {
+            assert!((a - b).abs() <= 1e-5, "cell ({r}, {c}) must not see the corner");
+        }
+    }
+}
+
+#[test]
+fn bad_sheets_and_strides_are_refused() {
+    let clf = classifier(&two_layer(), 1);
+    let px = vec![255u8; 19 * 30];
+    assert!(clf.score_map(&px, 19, 30, &ScoreMapOptions::native(&clf)).is_err());
+    let px = vec![255u8; 30 * 30];
+    let three = ScoreMapOptions { stride: 3, tile_cells: 8 };
+    assert!(clf.score_map(&px, 30, 30, &three).unwrap_err().to_string().contains("stride 3"));
+    assert!(clf.score_map(&px[1..], 30, 30, &ScoreMapOptions::native(&clf)).is_err());
+}
