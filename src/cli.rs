@@ -42,10 +42,15 @@ pub enum Command {
     #[command(after_help = "Example:\n  symtrust init ./north-unit")]
     Init(cmd::init::InitArgs),
     /// Write a complete, labelled site of the synthetic plant.
-    #[command(after_help = "Example:\n  symtrust synth --out ./plant-b --sheets 20 --style b --seed 7")]
+    #[command(
+        after_help = "Example:\n  symtrust synth --out ./plant-b --sheets 20 --style b --seed 7"
+    )]
     Synth(cmd::synth::SynthArgs),
     /// Register raster sheets.
     Sheets(cmd::sheets::SheetsArgs),
+    /// Check label quality, and import or export labels as CSV or COCO-format JSON.
+    #[command(after_help = "Example:\n  symtrust labels check --site ./north-unit --json")]
+    Labels(cmd::labels::LabelsArgs),
     /// Build crop libraries.
     Crops(cmd::crops::CropsArgs),
     /// Run the whole job on the built-in synthetic plant.
@@ -59,6 +64,7 @@ pub fn dispatch(ctx: &Ctx, command: Command) -> anyhow::Result<u8> {
         Command::Init(args) => cmd::init::run(ctx, &args),
         Command::Synth(args) => cmd::synth::run(ctx, &args),
         Command::Sheets(args) => cmd::sheets::run(ctx, &args),
+        Command::Labels(args) => cmd::labels::run(ctx, &args),
         Command::Crops(args) => cmd::crops::run(ctx, &args),
         Command::Demo(args) => cmd::demo::run(ctx, &args),
     }

@@ -14,9 +14,7 @@ pub fn code_for(err: &anyhow::Error) -> u8 {
     for cause in err.chain() {
         if let Some(e) = cause.downcast_ref::<LabelError>() {
             return match e {
-                LabelError::Io { source, .. }
-                    if source.kind() != std::io::ErrorKind::NotFound =>
-                {
+                LabelError::Io { source, .. } if source.kind() != std::io::ErrorKind::NotFound => {
                     FAILURE
                 }
                 _ => BAD_INPUT,

@@ -13,7 +13,11 @@ fn main() -> ExitCode {
     let cli = match cli::Cli::try_parse() {
         Ok(cli) => cli,
         Err(e) => {
-            let code = if e.use_stderr() { exit::BAD_INPUT } else { exit::OK };
+            let code = if e.use_stderr() {
+                exit::BAD_INPUT
+            } else {
+                exit::OK
+            };
             let _ = e.print();
             return ExitCode::from(code);
         }

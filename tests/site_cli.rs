@@ -17,7 +17,10 @@ fn init_creates_a_site_and_refuses_to_overwrite_one() {
     assert!(site.join("site.toml").is_file());
     assert!(site.join("sheets").is_dir() && site.join("labels").is_dir());
     let text = std::fs::read_to_string(site.join("site.toml")).unwrap();
-    assert!(text.contains("window = 100") && text.contains("dpi = 200.0"), "{text}");
+    assert!(
+        text.contains("window = 100") && text.contains("dpi = 200.0"),
+        "{text}"
+    );
     let again = symtrust(tmp.path(), &["init", "site"]).expect_code(2);
     assert!(again.stderr.contains("already exists"), "{}", again.stderr);
 }
@@ -46,12 +49,23 @@ fn sheets_add_records_resolution_and_resamples() {
         .unwrap();
     let run = symtrust(
         tmp.path(),
-        &["sheets", "add", "--site", "site", "hi-res.png", "photo.jpg", "--json"],
+        &[
+            "sheets",
+            "add",
+            "--site",
+            "site",
+            "hi-res.png",
+            "photo.jpg",
+            "--json",
+        ],
     )
     .expect_code(0);
     let v = run.json();
     let hi = &v["results"][0]["sheet"];
-    assert_eq!((hi["width"].as_u64(), hi["height"].as_u64()), (Some(200), Some(150)));
+    assert_eq!(
+        (hi["width"].as_u64(), hi["height"].as_u64()),
+        (Some(200), Some(150))
+    );
     assert_eq!(hi["dpi_source"], "file_metadata");
     let jpg = &v["results"][1]["sheet"];
     assert_eq!(jpg["dpi_source"], "site_default");
@@ -59,8 +73,16 @@ fn sheets_add_records_resolution_and_resamples() {
     assert!(site.join("labels/photo.json").is_file());
     // Adding the same file again changes nothing.
     let before = snapshot(&site.join("labels"));
-    let again = symtrust(tmp.path(), &["sheets", "add", "--site", "site", "hi-res.png"]).expect_code(0);
-    assert!(again.stderr.contains("already registered"), "{}", again.stderr);
+    let again = symtrust(
+        tmp.path(),
+        &["sheets", "add", "--site", "site", "hi-res.png"],
+    )
+    .expect_code(0);
+    assert!(
+        again.stderr.contains("already registered"),
+        "{}",
+        again.stderr
+    );
     assert_eq!(snapshot(&site.join("labels")), before);
 }
 
@@ -71,17 +93,39 @@ fn sheets_add_refuses_bad_images_by_name_and_keeps_the_good_ones() {
     let good = symtrust_labels::raster::encode_png_with_dpi(&drawing(200, 200), 200.0).unwrap();
     std::fs::write(tmp.path().join("good.png"), &good).unwrap();
     std::fs::write(tmp.path().join("cut.png"), &good[..good.len() / 2]).unwrap();
-    std::fs::write(tmp.path().join("junk.tif"), b"II*\0 this is not really a tiff").unwrap();
+    std::fs::write(
+        tmp.path().join("junk.tif"),
+        b"II*\0 this is not really a tiff",
+    )
+    .unwrap();
     std::fs::write(tmp.path().join("bad name!.png"), &good).unwrap();
     let run = symtrust(
         tmp.path(),
-        &["sheets", "add", "--site", "site", "good.png", "cut.png", "junk.tif", "bad name!.png", "missing.png"],
+        &[
+            "sheets",
+            "add",
+            "--site",
+            "site",
+            "good.png",
+            "cut.png",
+            "junk.tif",
+            "bad name!.png",
+            "missing.png",
+        ],
     )
     .expect_code(2);
     for name in ["cut.png", "junk.tif", "bad name!.png", "missing.png"] {
-        assert!(run.stderr.contains(name), "{name} not named:\n{}", run.stderr);
+        assert!(
+            run.stderr.contains(name),
+            "{name} not named:\n{}",
+            run.stderr
+        );
     }
-    assert!(run.stderr.contains("4 of 5 files were not registered"), "{}", run.stderr);
+    assert!(
+        run.stderr.contains("4 of 5 files were not registered"),
+        "{}",
+        run.stderr
+    );
     let labels: Vec<_> = std::fs::read_dir(site.join("labels"))
         .unwrap()
         .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
@@ -105,7 +149,11 @@ fn sheets_add_refuses_an_absurdly_large_image_before_decoding() {
     let png = symtrust_labels::raster::encode_png_with_dpi(&drawing(200, 100), 200.0).unwrap();
     std::fs::write(tmp.path().join("big.png"), png).unwrap();
     let run = symtrust(tmp.path(), &["sheets", "add", "--site", "site", "big.png"]).expect_code(2);
-    assert!(run.stderr.contains("big.png") && run.stderr.contains("exceeds the limit"), "{}", run.stderr);
+    assert!(
+        run.stderr.contains("big.png") && run.stderr.contains("exceeds the limit"),
+        "{}",
+        run.stderr
+    );
 }
 
 #[test]
@@ -117,12 +165,22 @@ fn synth_then_crops_build_keeps_held_out_sheets_out() {
     let run = symtrust(tmp.path(), &["crops", "build", "--site", "site", "--json"]).expect_code(0);
     let v = run.json();
     let dir = Path::new(v["dir"].as_str().unwrap());
-    let dir = if dir.is_absolute() { dir.to_path_buf() } else { tmp.path().join(dir) };
+    let dir = if dir.is_absolute() {
+        dir.to_path_buf()
+    } else {
+        tmp.path().join(dir)
+    };
     let index = std::fs::read_to_string(dir.join("index.csv")).unwrap();
     let rows: Vec<&str> = index.lines().skip(1).collect();
     assert!(rows.len() > 100, "{} crops", rows.len());
-    assert!(rows.iter().all(|r| !r.contains("fp-a-0002")), "a held-out sheet gave a crop");
-    assert!(rows.iter().any(|r| r.contains(",positive,")) && rows.iter().any(|r| r.contains(",negative,")));
+    assert!(
+        rows.iter().all(|r| !r.contains("fp-a-0002")),
+        "a held-out sheet gave a crop"
+    );
+    assert!(
+        rows.iter().any(|r| r.contains(",positive,"))
+            && rows.iter().any(|r| r.contains(",negative,"))
+    );
     assert!(v["counts"]["positive"].as_u64().unwrap() > 0);
     // The crops are real windows: positives hold ink, files match their hashes.
     let lib = symtrust_labels::crops::CropLibrary::open(&dir).unwrap();
@@ -132,7 +190,8 @@ fn synth_then_crops_build_keeps_held_out_sheets_out() {
         assert!(px.iter().any(|p| *p < 128), "{} has no ink", r.file);
     }
     // A second build with the same labels and seed reuses the same library.
-    let again = symtrust(tmp.path(), &["crops", "build", "--site", "site", "--json"]).expect_code(0);
+    let again =
+        symtrust(tmp.path(), &["crops", "build", "--site", "site", "--json"]).expect_code(0);
     assert_eq!(again.json()["id"], v["id"]);
     assert_eq!(again.json()["reused"], true);
 }
@@ -166,7 +225,8 @@ fn crops_build_refuses_a_document_for_a_missing_sheet() {
 
 fn edit_first_symbol(site: &Path, f: impl Fn(&mut serde_json::Value)) {
     let path = site.join("labels/fp-a-0000.json");
-    let mut v: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&path).unwrap()).unwrap();
+    let mut v: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&path).unwrap()).unwrap();
     f(&mut v["symbols"][0]);
     std::fs::write(&path, serde_json::to_string_pretty(&v).unwrap()).unwrap();
 }
@@ -176,7 +236,11 @@ fn crops_build_refuses_an_unknown_class() {
     let tmp = tempfile::tempdir().unwrap();
     let site = synthetic_site(tmp.path());
     edit_first_symbol(&site, |s| s["class"] = "gate_valve".into());
-    crops_build_fails_cleanly(&site, tmp.path(), &["fp-a-0000.json", "s0001", "gate_valve"]);
+    crops_build_fails_cleanly(
+        &site,
+        tmp.path(),
+        &["fp-a-0000.json", "s0001", "gate_valve"],
+    );
 }
 
 #[test]

@@ -202,8 +202,9 @@ pub fn mcnemar(champion_right: &[bool], challenger_right: &[bool], exact_below: 
         let p = if n == 0 { 1.0 } else { (2.0 * binomial_half_cdf(b.min(c), n)).min(1.0) };
         (McNemarMethod::ExactBinomial, None, p)
     } else {
-        let d = (b as f64 - c as f64).abs() - 1.0;
-        let x = d.max(0.0).powi(2) / n as f64;
+        // The formula as published, unclamped: b = c gives 1 / (b + c), not 0
+        // (the same as scipy-based and statsmodels' corrected statistic).
+        let x = ((b as f64 - c as f64).abs() - 1.0).powi(2) / n as f64;
         (McNemarMethod::ChiSquareCorrected, Some(x), chi2_sf_1dof(x))
     };
     Ok(McNemarResult { both_right, champion_only, challenger_only, both_wrong, method, statistic, p_value })

@@ -156,7 +156,9 @@ pub(crate) mod testing {
             let n = self.calls.get();
             self.calls.set(n + 1);
             if n == self.fail_at {
-                Err(std::io::Error::other(format!("injected failure at step {n}")))
+                Err(std::io::Error::other(format!(
+                    "injected failure at step {n}"
+                )))
             } else {
                 Ok(())
             }
@@ -206,12 +208,20 @@ mod tests {
             let ops = FailingOps::new(fail_at);
             let err = write_atomic_with(&ops, &target, b"new version, longer").unwrap_err();
             assert!(err.to_string().contains("doc.json"), "{err}");
-            assert_eq!(std::fs::read(&target).unwrap(), b"old version", "step {fail_at}");
+            assert_eq!(
+                std::fs::read(&target).unwrap(),
+                b"old version",
+                "step {fail_at}"
+            );
             let leftovers: Vec<_> = std::fs::read_dir(dir.path())
                 .unwrap()
                 .map(|e| e.unwrap().file_name())
                 .collect();
-            assert_eq!(leftovers.len(), 1, "temp file left after step {fail_at}: {leftovers:?}");
+            assert_eq!(
+                leftovers.len(),
+                1,
+                "temp file left after step {fail_at}: {leftovers:?}"
+            );
         }
     }
 

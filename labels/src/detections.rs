@@ -62,7 +62,10 @@ fn check(path: &Path, line: u64, d: &Detection) -> Result<()> {
         })
     };
     if !d.bbox().is_finite() || !d.score.is_finite() {
-        return bad(format!("detection on sheet {:?} has a non-finite number", d.sheet));
+        return bad(format!(
+            "detection on sheet {:?} has a non-finite number",
+            d.sheet
+        ));
     }
     if d.w <= 0.0 || d.h <= 0.0 {
         return bad(format!(
@@ -110,7 +113,10 @@ pub fn read_detections(path: &Path) -> Result<DetectionSet> {
                 check(path, i as u64, d).map_err(|_| {
                     LabelError::invalid(
                         path,
-                        format!("detection #{i} (sheet {:?}) has an invalid box or score", d.sheet),
+                        format!(
+                            "detection #{i} (sheet {:?}) has an invalid box or score",
+                            d.sheet
+                        ),
                     )
                 })?;
             }
@@ -188,7 +194,11 @@ mod tests {
     fn bad_row_names_its_line() {
         let dir = tempfile::tempdir().unwrap();
         let p = dir.path().join("d.csv");
-        std::fs::write(&p, "sheet,class,score,x,y,w,h\ns1,pump,0.5,1,2,3,4\ns1,pump,high,1,2,3,4\n").unwrap();
+        std::fs::write(
+            &p,
+            "sheet,class,score,x,y,w,h\ns1,pump,0.5,1,2,3,4\ns1,pump,high,1,2,3,4\n",
+        )
+        .unwrap();
         let msg = read_detections(&p).unwrap_err().to_string();
         assert!(msg.contains("d.csv:3"), "{msg}");
     }

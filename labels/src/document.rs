@@ -230,7 +230,10 @@ impl LabelDocument {
             if s.id.is_empty() || !ids.insert(s.id.as_str()) {
                 return Err(LabelError::invalid(
                     path,
-                    format!("symbol id {:?} is empty or used twice; give each symbol its own id", s.id),
+                    format!(
+                        "symbol id {:?} is empty or used twice; give each symbol its own id",
+                        s.id
+                    ),
                 ));
             }
         }
@@ -257,7 +260,11 @@ impl LabelDocument {
     /// class from the site. The first problem is returned; `labels check` lists all.
     pub fn check_against(&self, path: &Path, classes: &[String]) -> Result<()> {
         self.check_structure(path)?;
-        for s in self.symbols.iter().filter(|s| s.state != ReviewState::Rejected) {
+        for s in self
+            .symbols
+            .iter()
+            .filter(|s| s.state != ReviewState::Rejected)
+        {
             let b = &s.bbox;
             let problem = if !b.is_finite() {
                 Some("has a non-finite coordinate".to_string())
@@ -268,7 +275,7 @@ impl LabelDocument {
                     "box ({}, {}, {}, {}) lies partly outside the {} x {} sheet",
                     b.x, b.y, b.w, b.h, self.sheet.width, self.sheet.height
                 ))
-            } else if !classes.iter().any(|c| *c == s.class) {
+            } else if !classes.contains(&s.class) {
                 Some(format!(
                     "has class {:?}, which site.toml does not define (known: {})",
                     s.class,
@@ -280,7 +287,10 @@ impl LabelDocument {
             if let Some(p) = problem {
                 return Err(LabelError::invalid(
                     path,
-                    format!("symbol {}: {p}; fix it or run `symtrust labels check` for all findings", s.id),
+                    format!(
+                        "symbol {}: {p}; fix it or run `symtrust labels check` for all findings",
+                        s.id
+                    ),
                 ));
             }
         }
@@ -290,8 +300,7 @@ impl LabelDocument {
 
 /// Parses a label document from text and checks its structure.
 pub fn parse_document(text: &str, path: &Path) -> Result<LabelDocument> {
-    let doc: LabelDocument =
-        serde_json::from_str(text).map_err(|e| LabelError::json(path, &e))?;
+    let doc: LabelDocument = serde_json::from_str(text).map_err(|e| LabelError::json(path, &e))?;
     doc.check_structure(path)?;
     Ok(doc)
 }
@@ -349,7 +358,9 @@ pub(crate) mod tests {
     fn truncated_json_names_file_and_line() {
         let text = String::from_utf8(render_document(&sample_doc())).unwrap();
         let cut = &text[..text.len() / 2];
-        let msg = parse_document(cut, Path::new("labels/s1.json")).unwrap_err().to_string();
+        let msg = parse_document(cut, Path::new("labels/s1.json"))
+            .unwrap_err()
+            .to_string();
         assert!(msg.starts_with("labels/s1.json:"), "{msg}");
     }
 
@@ -359,11 +370,17 @@ pub(crate) mod tests {
         let mut doc = sample_doc();
         assert!(doc.check_against(Path::new("d.json"), &classes).is_ok());
         doc.symbols[0].class = "valve".into();
-        let msg = doc.check_against(Path::new("d.json"), &classes).unwrap_err().to_string();
+        let msg = doc
+            .check_against(Path::new("d.json"), &classes)
+            .unwrap_err()
+            .to_string();
         assert!(msg.contains("s0001") && msg.contains("valve"), "{msg}");
         let mut doc = sample_doc();
         doc.symbols[0].bbox.x = 950.0;
-        let msg = doc.check_against(Path::new("d.json"), &classes).unwrap_err().to_string();
+        let msg = doc
+            .check_against(Path::new("d.json"), &classes)
+            .unwrap_err()
+            .to_string();
         assert!(msg.contains("outside"), "{msg}");
     }
 
@@ -372,6 +389,24 @@ pub(crate) mod tests {
         let mut doc = sample_doc();
         doc.symbols.push(doc.symbols[0].clone());
         assert!(doc.check_structure(Path::new("d.json")).is_err());
+    }
+
+    proptest::proptest! {
+        /// Any truncation or byte corruption of a valid document is either read
+        /// correctly or refused with the file named; it never panics.
+        #[test]
+        fn damaged_documents_never_panic(cut in 0usize..2000, flips in proptest::collection::vec((0usize..2000, 0u8..=255), 0..4)) {
+            let mut bytes = render_document(&sample_doc());
+            for (at, b) in flips {
+                let n = bytes.len();
+                bytes[at % n] = b;
+            }
+            bytes.truncate(cut.min(bytes.len()));
+            let text = String::from_utf8_lossy(&bytes);
+            if let Err(e) = parse_document(&text, Path::new("labels/s1.json")) {
+                proptest::prop_assert!(e.to_string().starts_with("labels/s1.json"));
+            }
+        }
     }
 
     #[test]

@@ -15,7 +15,9 @@ pub enum LabelError {
         source: std::io::Error,
     },
     /// A folder is not a site (no `site.toml`).
-    #[error("{path} is not a symtrust site (no site.toml); run `symtrust init {path}` or pass --site DIR")]
+    #[error(
+        "{path} is not a symtrust site (no site.toml); run `symtrust init {path}` or pass --site DIR"
+    )]
     NotASite {
         /// The folder that was given.
         path: PathBuf,

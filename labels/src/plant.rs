@@ -39,7 +39,11 @@ pub fn held_out_count(n: usize) -> usize {
 }
 
 /// Generates the plant into a new site at `out`; calls `on_sheet` after each sheet.
-pub fn write_plant(out: &std::path::Path, req: &PlantRequest, on_sheet: &dyn Fn(&str)) -> Result<Site> {
+pub fn write_plant(
+    out: &std::path::Path,
+    req: &PlantRequest,
+    on_sheet: &dyn Fn(&str),
+) -> Result<Site> {
     let synth_config = SynthConfig::new(req.style, req.seed);
     let classes: Vec<ClassSpec> = synth::classes(req.style)
         .into_iter()
@@ -59,7 +63,10 @@ pub fn write_plant(out: &std::path::Path, req: &PlantRequest, on_sheet: &dyn Fn(
     config.seed = req.seed;
     let mut site = Site::create(out, config)?;
     let store = LabelStore::new(&site);
-    let source = format!("synthetic plant generator (style {style_name}, seed {})", req.seed);
+    let source = format!(
+        "synthetic plant generator (style {style_name}, seed {})",
+        req.seed
+    );
     let mut ids = Vec::new();
     for index in 0..req.sheets {
         let sheet = synth::generate_sheet(&synth_config, index, synth::default_paper(index));

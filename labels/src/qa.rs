@@ -171,7 +171,10 @@ impl Finding {
                 "{}: {s}: {level}: {} ({})",
                 self.file, self.message, self.suggestion
             ),
-            None => format!("{}: {level}: {} ({})", self.file, self.message, self.suggestion),
+            None => format!(
+                "{}: {level}: {} ({})",
+                self.file, self.message, self.suggestion
+            ),
         }
     }
 
@@ -230,7 +233,13 @@ pub fn check_site(site: &Site) -> Result<QaReport> {
             let doc = load_for_check(&store.path(id), id, &rel, &mut findings);
             if let Some(doc) = &doc {
                 check_document(&site.config, &rel, doc, &mut findings);
-                check_sheet_file(&site.root, site.config.max_sheet_pixels, &rel, doc, &mut findings);
+                check_sheet_file(
+                    &site.root,
+                    site.config.max_sheet_pixels,
+                    &rel,
+                    doc,
+                    &mut findings,
+                );
             }
             (findings, doc)
         })
@@ -260,7 +269,10 @@ fn load_for_check(
                     rel,
                     Some(id),
                     None,
-                    format!("the document describes sheet {:?}, not {id:?}", doc.sheet.id),
+                    format!(
+                        "the document describes sheet {:?}, not {id:?}",
+                        doc.sheet.id
+                    ),
                     &format!("rename the file to labels/{}.json", doc.sheet.id),
                 ));
             }
@@ -346,7 +358,10 @@ pub fn check_document(
         if !b.is_finite() {
             findings.push(here(
                 Code::BoxNotFinite,
-                format!("box ({}, {}, {}, {}) has a non-finite number", b.x, b.y, b.w, b.h),
+                format!(
+                    "box ({}, {}, {}, {}) has a non-finite number",
+                    b.x, b.y, b.w, b.h
+                ),
                 "redraw the box",
             ));
             continue;
@@ -430,11 +445,7 @@ pub fn check_document(
         };
         findings.push(finding);
     }
-    if !doc
-        .symbols
-        .iter()
-        .any(|s| s.state != ReviewState::Rejected)
-    {
+    if !doc.symbols.iter().any(|s| s.state != ReviewState::Rejected) {
         findings.push(Finding::new(
             Code::SheetUnlabelled,
             rel,
@@ -584,8 +595,11 @@ fn check_site_wide(
     findings: &mut Vec<Finding>,
 ) -> Result<()> {
     let config = &site.config;
-    let mut counts: BTreeMap<&str, usize> =
-        config.classes.iter().map(|c| (c.name.as_str(), 0)).collect();
+    let mut counts: BTreeMap<&str, usize> = config
+        .classes
+        .iter()
+        .map(|c| (c.name.as_str(), 0))
+        .collect();
     for doc in docs.iter().filter(|d| !site.is_held_out(&d.sheet.id)) {
         for s in doc.accepted() {
             if let Some(n) = counts.get_mut(s.class.as_str()) {
@@ -622,10 +636,7 @@ fn check_site_wide(
             ));
         }
     }
-    let registered: HashSet<String> = docs
-        .iter()
-        .map(|d| normalise(&d.sheet.file))
-        .collect();
+    let registered: HashSet<String> = docs.iter().map(|d| normalise(&d.sheet.file)).collect();
     let dir = site.sheets_dir();
     let entries = match std::fs::read_dir(&dir) {
         Ok(e) => e,
@@ -642,7 +653,9 @@ fn check_site_wide(
         let rel = format!("sheets/{name}");
         // Documents whose own file failed to parse cannot vouch for their sheet;
         // their image is reported only through the document's finding.
-        let stem = Path::new(&name).file_stem().map(|s| s.to_string_lossy().into_owned());
+        let stem = Path::new(&name)
+            .file_stem()
+            .map(|s| s.to_string_lossy().into_owned());
         let doc_unparsed = stem
             .as_deref()
             .is_some_and(|s| known.contains(s) && !docs.iter().any(|d| d.sheet.id == s));
@@ -789,7 +802,8 @@ mod tests {
     #[test]
     fn rejected_symbols_skip_geometric_checks() {
         let mut d = clean();
-        d.symbols.push(symbol("s0003", "pump", 990.0, 790.0, -1.0, 300.0));
+        d.symbols
+            .push(symbol("s0003", "pump", 990.0, 790.0, -1.0, 300.0));
         d.symbols[2].state = ReviewState::Rejected;
         assert_eq!(codes(&d), Vec::<Code>::new());
     }
@@ -798,7 +812,8 @@ mod tests {
     fn near_duplicate_of_one_class_is_an_error() {
         let mut d = clean();
         // 80 x 80 against 80 x 78 at the same corner: IoU = 6240 / 6400 = 0.975.
-        d.symbols.push(symbol("s0003", "pump", 100.0, 100.0, 80.0, 78.0));
+        d.symbols
+            .push(symbol("s0003", "pump", 100.0, 100.0, 80.0, 78.0));
         fires_alone(Code::DuplicateBox, &d);
         let mut f = Vec::new();
         check_document(&config(), "labels/fp-1.json", &d, &mut f);
@@ -809,7 +824,8 @@ mod tests {
     #[test]
     fn same_spot_with_two_classes_is_an_error() {
         let mut d = clean();
-        d.symbols.push(symbol("s0003", "valve", 101.0, 100.0, 80.0, 80.0));
+        d.symbols
+            .push(symbol("s0003", "valve", 101.0, 100.0, 80.0, 80.0));
         fires_alone(Code::ClassConflict, &d);
         // Draft symbols count too.
         d.symbols[2].state = ReviewState::Draft;
@@ -822,7 +838,8 @@ mod tests {
         // has intersection 4500 and union 5000, IoU exactly 0.9: not a duplicate.
         let mut d = clean();
         d.symbols[0].bbox = BBox::new(100.0, 100.0, 100.0, 50.0);
-        d.symbols.push(symbol("s0003", "pump", 100.0, 100.0, 90.0, 50.0));
+        d.symbols
+            .push(symbol("s0003", "pump", 100.0, 100.0, 90.0, 50.0));
         assert_eq!(d.symbols[0].bbox.iou(&d.symbols[2].bbox), 0.9);
         assert_eq!(codes(&d), Vec::<Code>::new());
         // 90.5 wide: IoU 0.905, just above.
@@ -852,7 +869,10 @@ mod tests {
         d.sheet.dpi = 100.0;
         let mut f = Vec::new();
         check_document(&config(), "labels/fp-1.json", &d, &mut f);
-        let hits: Vec<_> = f.iter().map(|f| (f.code, f.symbol.clone().unwrap())).collect();
+        let hits: Vec<_> = f
+            .iter()
+            .map(|f| (f.code, f.symbol.clone().unwrap()))
+            .collect();
         assert_eq!(hits, vec![(Code::SizeOutlier, "s0002".to_string())]);
     }
 
@@ -872,7 +892,10 @@ mod tests {
             0..40,
         )
         .prop_map(|v| {
-            let mut out: Vec<BBox> = v.into_iter().map(|(x, y, w, h)| BBox::new(x, y, w, h)).collect();
+            let mut out: Vec<BBox> = v
+                .into_iter()
+                .map(|(x, y, w, h)| BBox::new(x, y, w, h))
+                .collect();
             // Near copies, so pairs above the threshold actually occur.
             let copies: Vec<BBox> = out
                 .iter()
@@ -901,8 +924,22 @@ mod tests {
 
     #[test]
     fn report_sorts_and_counts() {
-        let w = Finding::new(Code::SizeOutlier, "labels/b.json", Some("b"), Some("s1"), "m".into(), "s");
-        let e = Finding::new(Code::BoxEmpty, "labels/a.json", Some("a"), Some("s2"), "m".into(), "s");
+        let w = Finding::new(
+            Code::SizeOutlier,
+            "labels/b.json",
+            Some("b"),
+            Some("s1"),
+            "m".into(),
+            "s",
+        );
+        let e = Finding::new(
+            Code::BoxEmpty,
+            "labels/a.json",
+            Some("a"),
+            Some("s2"),
+            "m".into(),
+            "s",
+        );
         let r = QaReport::from_findings(vec![w.clone(), e.clone()]);
         assert_eq!(r.findings, vec![e, w]);
         assert_eq!((r.errors, r.warnings), (1, 1));
@@ -926,14 +963,22 @@ mod tests {
     }
 
     fn site_codes(site: &Site) -> Vec<Code> {
-        check_site(site).unwrap().findings.iter().map(|f| f.code).collect()
+        check_site(site)
+            .unwrap()
+            .findings
+            .iter()
+            .map(|f| f.code)
+            .collect()
     }
 
     #[test]
     fn clean_site_has_only_the_example_count_warnings() {
         let (_dir, site) = site_on_disk();
         // One accepted example per class, min_examples = 2.
-        assert_eq!(site_codes(&site), vec![Code::TooFewExamples, Code::TooFewExamples]);
+        assert_eq!(
+            site_codes(&site),
+            vec![Code::TooFewExamples, Code::TooFewExamples]
+        );
         let mut c = site.config.clone();
         c.min_examples = 1;
         let mut site = site;
@@ -979,14 +1024,22 @@ mod tests {
     fn broken_document_is_a_finding_and_the_check_goes_on() {
         let (_dir, mut site) = site_on_disk();
         lenient(&mut site);
-        std::fs::write(site.labels_dir().join("fp-2.json"), b"{\n  \"schema_version\": 1,\n  \"sheet\": {").unwrap();
+        std::fs::write(
+            site.labels_dir().join("fp-2.json"),
+            b"{\n  \"schema_version\": 1,\n  \"sheet\": {",
+        )
+        .unwrap();
         let mut other = clean();
         other.sheet.id = "fp-3".into();
         other.sheet.file = "sheets/gone.png".into();
         other.symbols[0].bbox.x = 990.0;
         LabelStore::new(&site).save(&other, "tester").unwrap();
         let report = check_site(&site).unwrap();
-        let got: Vec<(String, Code)> = report.findings.iter().map(|f| (f.file.clone(), f.code)).collect();
+        let got: Vec<(String, Code)> = report
+            .findings
+            .iter()
+            .map(|f| (f.file.clone(), f.code))
+            .collect();
         assert_eq!(
             got,
             vec![
@@ -995,7 +1048,11 @@ mod tests {
                 ("labels/fp-3.json".to_string(), Code::BoxOutsideSheet),
             ]
         );
-        assert!(report.findings[0].message.contains("line 3"), "{}", report.findings[0].message);
+        assert!(
+            report.findings[0].message.contains("line 3"),
+            "{}",
+            report.findings[0].message
+        );
         assert_eq!(report.errors, 3);
     }
 
@@ -1033,7 +1090,11 @@ mod tests {
         std::fs::write(site.sheets_dir().join("fp-8.png"), b"x").unwrap();
         std::fs::write(site.sheets_dir().join("notes.txt"), b"x").unwrap();
         let report = check_site(&site).unwrap();
-        let got: Vec<(String, Code)> = report.findings.iter().map(|f| (f.file.clone(), f.code)).collect();
+        let got: Vec<(String, Code)> = report
+            .findings
+            .iter()
+            .map(|f| (f.file.clone(), f.code))
+            .collect();
         assert_eq!(
             got,
             vec![
@@ -1051,6 +1112,9 @@ mod tests {
         c.min_examples = 1;
         c.held_out = vec!["fp-1".into()];
         site.save_config(c).unwrap();
-        assert_eq!(site_codes(&site), vec![Code::TooFewExamples, Code::TooFewExamples]);
+        assert_eq!(
+            site_codes(&site),
+            vec![Code::TooFewExamples, Code::TooFewExamples]
+        );
     }
 }

@@ -52,7 +52,9 @@ pub fn read_header(path: &Path, max_pixels: u64) -> Result<RasterHeader> {
         Some(other) => {
             return Err(image_err(
                 path,
-                format!("{other:?} is not a supported sheet format; convert it to PNG, TIFF or JPEG"),
+                format!(
+                    "{other:?} is not a supported sheet format; convert it to PNG, TIFF or JPEG"
+                ),
             ));
         }
         None => {
@@ -244,7 +246,9 @@ mod tests {
     use super::*;
 
     fn sheet(w: u32, h: u32) -> GrayImage {
-        GrayImage::from_fn(w, h, |x, y| image::Luma([if (x + y) % 7 == 0 { 0 } else { 255 }]))
+        GrayImage::from_fn(w, h, |x, y| {
+            image::Luma([if (x + y) % 7 == 0 { 0 } else { 255 }])
+        })
     }
 
     #[test]
@@ -283,7 +287,10 @@ mod tests {
         let p = dir.path().join("notes.png");
         std::fs::write(&p, b"this is text, not a drawing").unwrap();
         let msg = decode_gray(&p, 1 << 20).unwrap_err().to_string();
-        assert!(msg.contains("notes.png") && msg.contains("unreadable"), "{msg}");
+        assert!(
+            msg.contains("notes.png") && msg.contains("unreadable"),
+            "{msg}"
+        );
     }
 
     /// A minimal uncompressed 1-bit bilevel TIFF (TIFF 6.0 baseline, section 3:
@@ -293,18 +300,18 @@ mod tests {
         let mut t: Vec<u8> = b"II*\0".to_vec();
         t.extend_from_slice(&8u32.to_le_bytes()); // first IFD at offset 8
         let entries: Vec<(u16, u16, u32, u32)> = vec![
-            (256, 3, 1, 16),  // ImageWidth
-            (257, 3, 1, 2),   // ImageLength
-            (258, 3, 1, 1),   // BitsPerSample
-            (259, 3, 1, 1),   // Compression: none
-            (262, 3, 1, 0),   // Photometric: WhiteIsZero
-            (273, 4, 1, 0),   // StripOffsets (patched below)
-            (277, 3, 1, 1),   // SamplesPerPixel
-            (278, 3, 1, 2),   // RowsPerStrip
-            (279, 4, 1, 4),   // StripByteCounts
-            (282, 5, 1, 0),   // XResolution (patched below)
-            (283, 5, 1, 0),   // YResolution (patched below)
-            (296, 3, 1, 2),   // ResolutionUnit: inch
+            (256, 3, 1, 16), // ImageWidth
+            (257, 3, 1, 2),  // ImageLength
+            (258, 3, 1, 1),  // BitsPerSample
+            (259, 3, 1, 1),  // Compression: none
+            (262, 3, 1, 0),  // Photometric: WhiteIsZero
+            (273, 4, 1, 0),  // StripOffsets (patched below)
+            (277, 3, 1, 1),  // SamplesPerPixel
+            (278, 3, 1, 2),  // RowsPerStrip
+            (279, 4, 1, 4),  // StripByteCounts
+            (282, 5, 1, 0),  // XResolution (patched below)
+            (283, 5, 1, 0),  // YResolution (patched below)
+            (296, 3, 1, 2),  // ResolutionUnit: inch
         ];
         let ifd_len = 2 + entries.len() * 12 + 4;
         let rational_at = (8 + ifd_len) as u32;

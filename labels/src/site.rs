@@ -244,10 +244,7 @@ impl SiteConfig {
                 ));
             }
             if c.name == crate::crops::BACKGROUND {
-                return bad(format!(
-                    "class name {:?} is reserved for negatives",
-                    c.name
-                ));
+                return bad(format!("class name {:?} is reserved for negatives", c.name));
             }
             if !seen.insert(c.name.as_str()) {
                 return bad(format!("class {:?} is listed twice", c.name));
@@ -277,7 +274,9 @@ impl SiteConfig {
             ));
         }
         if m.conv_channels.contains(&0) || m.conv_kernels.iter().any(|k| *k == 0 || k % 2 == 0) {
-            return bad("[model] channels must be positive and kernels odd and positive".to_string());
+            return bad(
+                "[model] channels must be positive and kernels odd and positive".to_string(),
+            );
         }
         if m.hidden == 0 || !(0.0..1.0).contains(&m.dropout) {
             return bad("[model] hidden must be positive and dropout in [0, 1)".to_string());
@@ -286,9 +285,9 @@ impl SiteConfig {
         if t.epochs == 0 || t.batch_size == 0 {
             return bad("[train] epochs and batch_size must be positive".to_string());
         }
-        if !(t.learning_rate.is_finite() && t.learning_rate > 0.0)
-            || !(t.weight_decay.is_finite() && t.weight_decay >= 0.0)
-        {
+        let rate_ok = t.learning_rate.is_finite() && t.learning_rate > 0.0;
+        let decay_ok = t.weight_decay.is_finite() && t.weight_decay >= 0.0;
+        if !(rate_ok && decay_ok) {
             return bad(
                 "[train] learning_rate must be positive and weight_decay non-negative".to_string(),
             );
@@ -359,8 +358,7 @@ impl Site {
         if path.exists() {
             return Err(LabelError::Config {
                 path,
-                message: "a site already exists here; edit it or choose another folder"
-                    .to_string(),
+                message: "a site already exists here; edit it or choose another folder".to_string(),
             });
         }
         std::fs::create_dir_all(root).map_err(|e| LabelError::io(root, e))?;
@@ -484,7 +482,10 @@ mod tests {
         let text = "schema_version = 1\nname = \"x\"\nwindow = \"big\"\n";
         let err = parse_config(text, Path::new("s/site.toml")).unwrap_err();
         let msg = err.to_string();
-        assert!(msg.contains("s/site.toml") && msg.contains("line 3"), "{msg}");
+        assert!(
+            msg.contains("s/site.toml") && msg.contains("line 3"),
+            "{msg}"
+        );
     }
 
     #[test]

@@ -165,7 +165,17 @@ mod tests {
         store.save(&a, "ana").unwrap();
         let err = store.save(&b, "ben").unwrap_err();
         let msg = err.to_string();
-        assert!(matches!(err, LabelError::StaleRevision { expected: 1, found: 2, .. }), "{msg}");
+        assert!(
+            matches!(
+                err,
+                LabelError::StaleRevision {
+                    expected: 1,
+                    found: 2,
+                    ..
+                }
+            ),
+            "{msg}"
+        );
         assert!(msg.contains("ana"), "says who changed it: {msg}");
         assert_eq!(store.load("s1").unwrap().symbols[0].bbox.x, 101.0);
     }
@@ -184,7 +194,11 @@ mod tests {
                 .save_with(&FailingOps::new(fail_at), &changed, "ben")
                 .unwrap_err();
             assert!(err.to_string().contains("s1.json"), "{err}");
-            assert_eq!(std::fs::read(store.path("s1")).unwrap(), before, "step {fail_at}");
+            assert_eq!(
+                std::fs::read(store.path("s1")).unwrap(),
+                before,
+                "step {fail_at}"
+            );
             assert_eq!(store.load("s1").unwrap().revision, 1);
         }
         // The next save succeeds and no temporary file survives.

@@ -40,8 +40,13 @@ pub fn run(ctx: &Ctx, args: &CropsArgs) -> anyhow::Result<u8> {
     } = &args.action;
     let site = ctx.open_site()?;
     symtrust_labels::crops::builder::remove_stale_builds(&site)?;
-    let n = symtrust_labels::store::LabelStore::new(&site).sheet_ids()?.len();
-    let bar = ctx.progress(n.saturating_sub(site.config.held_out.len()) as u64, "cropping");
+    let n = symtrust_labels::store::LabelStore::new(&site)
+        .sheet_ids()?
+        .len();
+    let bar = ctx.progress(
+        n.saturating_sub(site.config.held_out.len()) as u64,
+        "cropping",
+    );
     let outcome = build_library(
         &site,
         &CropRequest {
@@ -67,7 +72,11 @@ pub fn run(ctx: &Ctx, args: &CropsArgs) -> anyhow::Result<u8> {
             "negatives_short": outcome.negatives_short,
         }))?;
     } else {
-        let verb = if outcome.reused { "reused existing" } else { "built" };
+        let verb = if outcome.reused {
+            "reused existing"
+        } else {
+            "built"
+        };
         ctx.say(format!(
             "{verb} crop library {} in {}: {} positives, {} negatives, {} hard negatives from {} sheets ({} held out, none used)",
             m.id,

@@ -22,7 +22,9 @@ pub fn run(ctx: &Ctx, args: &InitArgs) -> anyhow::Result<u8> {
     let config = SiteConfig::new(&args.name, starter_classes());
     let site = Site::create(&dir, config)?;
     if ctx.json {
-        ctx.print_json(&serde_json::json!({ "site": site.root, "classes": site.config.class_names() }))?;
+        ctx.print_json(
+            &serde_json::json!({ "site": site.root, "classes": site.config.class_names() }),
+        )?;
     } else {
         ctx.say(format!(
             "created site {} with {} starter classes; edit {} to match your drafting standard, then `symtrust sheets add --site {} FILE...`",
@@ -44,8 +46,17 @@ fn starter_classes() -> Vec<ClassSpec> {
         rotatable: false,
     };
     vec![
-        bubble("bubble_field", "instrument bubble, plain circle: discrete instrument, field mounted"),
-        bubble("bubble_shared", "circle in a square: shared display or shared control"),
-        bubble("bubble_board", "circle with a horizontal bar: located in a main control room"),
+        bubble(
+            "bubble_field",
+            "instrument bubble, plain circle: discrete instrument, field mounted",
+        ),
+        bubble(
+            "bubble_shared",
+            "circle in a square: shared display or shared control",
+        ),
+        bubble(
+            "bubble_board",
+            "circle with a horizontal bar: located in a main control room",
+        ),
     ]
 }

@@ -3,5 +3,6 @@
 pub mod crops;
 pub mod demo;
 pub mod init;
+pub mod labels;
 pub mod sheets;
 pub mod synth;

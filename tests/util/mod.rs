@@ -61,7 +61,9 @@ pub fn synthetic_site(dest: &Path) -> PathBuf {
         let dir = tempfile::tempdir().unwrap();
         symtrust(
             dir.path(),
-            &["synth", "--out", "site", "--sheets", "3", "--seed", "5", "--quiet"],
+            &[
+                "synth", "--out", "site", "--sheets", "3", "--seed", "5", "--quiet",
+            ],
         )
         .expect_code(0);
         dir
@@ -108,6 +110,10 @@ pub fn snapshot(dir: &Path) -> Vec<(PathBuf, Vec<u8>)> {
 pub fn drawing(w: u32, h: u32) -> image::GrayImage {
     image::GrayImage::from_fn(w, h, |x, y| {
         let d = ((x as f64 - 50.0).powi(2) + (y as f64 - 50.0).powi(2)).sqrt();
-        image::Luma([if (d - 20.0).abs() < 2.0 || y == h / 2 { 0 } else { 255 }])
+        image::Luma([if (d - 20.0).abs() < 2.0 || y == h / 2 {
+            0
+        } else {
+            255
+        }])
     })
 }

@@ -92,7 +92,7 @@ pub struct ModelCard {
 /// Encodes a network's weights as safetensors bytes (deterministic: tensors are
 /// ordered by name, no metadata).
 pub fn weights_bytes(net: &Network) -> Result<Vec<u8>> {
-    let tensors = net.named_tensors();
+    let tensors = net.named_tensors()?;
     safetensors::serialize(tensors.iter().map(|(n, t)| (n.clone(), t)), None).map_err(|e| {
         TrainerError::Settings {
             message: format!("cannot encode weights: {e}"),

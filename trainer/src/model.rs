@@ -97,14 +97,25 @@ impl Network {
         })
     }
 
-    /// The weights as named tensors (detached copies of the current values).
-    pub fn named_tensors(&self) -> Vec<(String, Tensor)> {
-        self.arch
+    /// The weights as named tensors (copies: later training does not change them).
+    pub fn named_tensors(&self) -> Result<Vec<(String, Tensor)>> {
+        Ok(self
+            .arch
             .parameter_shapes()
             .into_iter()
-            .zip(&self.params)
-            .map(|((name, _), v)| (name, v.as_tensor().detach()))
-            .collect()
+            .zip(self.snapshot()?)
+            .map(|((name, _), t)| (name, t))
+            .collect())
+    }
+
+    /// Copies of the current weights in parameter order. A plain `detach` would
+    /// share storage with the variables, which `Var::set` overwrites in place.
+    pub fn snapshot(&self) -> Result<Vec<Tensor>> {
+        self.params
+            .iter()
+            .map(|v| v.as_tensor().copy().map(|t| t.detach()))
+            .collect::<candle_core::Result<_>>()
+            .during("copying weights")
     }
 
     /// Replaces every weight with the values of `tensors` (same order and shapes).
@@ -213,7 +224,7 @@ mod tests {
     #[test]
     fn loading_refuses_a_wrong_shape() {
         let net = Network::init(&tiny(), 1, DType::F32).unwrap();
-        let mut map: HashMap<String, Tensor> = net.named_tensors().into_iter().collect();
+        let mut map: HashMap<String, Tensor> = net.named_tensors().unwrap().into_iter().collect();
         map.insert(
             "hidden.bias".into(),
             Tensor::zeros(7, DType::F32, &Device::Cpu).unwrap(),

@@ -83,7 +83,7 @@ pub fn learning_rate(peak: f64, step: u64, total: u64, steps_per_epoch: u64) -> 
     if step < warmup {
         return peak * (step + 1) as f64 / warmup as f64;
     }
-    let span = (total.saturating_sub(warmup)).max(1) as f64;
+    let span = total.saturating_sub(warmup + 1).max(1) as f64;
     let progress = ((step - warmup) as f64 / span).min(1.0);
     let floor = 0.1 * peak;
     floor + (peak - floor) * 0.5 * (1.0 + (std::f64::consts::PI * progress).cos())

@@ -277,7 +277,7 @@ pub fn train(
         log: Vec::new(),
         seconds: 0.0,
     };
-    let mut best: Vec<Tensor> = net.params.iter().map(|v| v.as_tensor().detach()).collect();
+    let mut best: Vec<Tensor> = net.snapshot()?;
     match (&ckpt_path, resume) {
         (Some(path), true) => {
             let c = Checkpoint::load(path, &names)?;
@@ -359,7 +359,7 @@ pub fn train(
             Some(b) => val.macro_f1 > b.macro_f1 || (val.macro_f1 == b.macro_f1 && val.loss < b.loss),
         };
         if improved {
-            best = net.params.iter().map(|v| v.as_tensor().detach()).collect();
+            best = net.snapshot()?;
             state.best = Some(val);
             state.best_epoch = epoch + 1;
             state.bad_epochs = 0;
@@ -398,7 +398,7 @@ pub fn train(
 fn save(path: &Path, names: &[String], net: &Network, opt: &AdamW, best: &[Tensor], state: &LoopState) -> Result<()> {
     Checkpoint {
         state: state.clone(),
-        params: net.params.iter().map(|v| v.as_tensor().detach()).collect(),
+        params: net.snapshot()?,
         best: best.to_vec(),
         m: opt.m.clone(),
         v: opt.v.clone(),

@@ -17,8 +17,8 @@
 //! is reproducible and its id deterministic.
 
 use super::library::{
-    BACKGROUND, CROP_SCHEMA_VERSION, CropCounts, CropKind, CropLibrary, CropManifest,
-    CropRecord, CropSettings, CropSplit, ManifestSheet,
+    BACKGROUND, CROP_SCHEMA_VERSION, CropCounts, CropKind, CropLibrary, CropManifest, CropRecord,
+    CropSettings, CropSplit, ManifestSheet,
 };
 use crate::atomic::{create_dir_durable, parent_dir};
 use crate::clock::now_rfc3339;
@@ -109,7 +109,10 @@ pub fn build_library(
             if split.held_out.contains(&d.sheet) {
                 dropped += 1;
             } else {
-                detections_by_sheet.entry(d.sheet.clone()).or_default().push(d);
+                detections_by_sheet
+                    .entry(d.sheet.clone())
+                    .or_default()
+                    .push(d);
             }
         }
     }
@@ -186,9 +189,18 @@ pub fn build_library(
     }
 
     let counts = CropCounts {
-        positive: crops.iter().filter(|c| c.record.kind == CropKind::Positive).count(),
-        negative: crops.iter().filter(|c| c.record.kind == CropKind::Negative).count(),
-        hard_negative: crops.iter().filter(|c| c.record.kind == CropKind::HardNegative).count(),
+        positive: crops
+            .iter()
+            .filter(|c| c.record.kind == CropKind::Positive)
+            .count(),
+        negative: crops
+            .iter()
+            .filter(|c| c.record.kind == CropKind::Negative)
+            .count(),
+        hard_negative: crops
+            .iter()
+            .filter(|c| c.record.kind == CropKind::HardNegative)
+            .count(),
     };
     let mut index = csv::Writer::from_writer(Vec::new());
     for c in &crops {
@@ -352,7 +364,12 @@ fn cut_sheet(
 
     for s in doc.accepted() {
         let (cx, cy) = s.bbox.center();
-        push(CropKind::Positive, &s.class, &s.id, Window::centered_on(cx, cy, size))?;
+        push(
+            CropKind::Positive,
+            &s.class,
+            &s.id,
+            Window::centered_on(cx, cy, size),
+        )?;
         let j = i64::from(settings.jitter_pixels);
         for _ in 0..settings.jitter_copies {
             let dx = rng.range_i64(-j, j) as f64;
@@ -461,14 +478,19 @@ mod tests {
             let centres = [(60.0, 60.0), (200.0, 120.0)];
             let img = GrayImage::from_fn(300, 200, |x, y| {
                 let on_ring = centres.iter().any(|(cx, cy)| {
-                    let d = ((f64::from(x) + 0.5 - cx).powi(2) + (f64::from(y) + 0.5 - cy).powi(2)).sqrt();
+                    let d = ((f64::from(x) + 0.5 - cx).powi(2) + (f64::from(y) + 0.5 - cy).powi(2))
+                        .sqrt();
                     (d - 12.0).abs() < 1.5
                 });
                 let grid = x % 50 == 25; // a vertical line: ink for negatives
                 image::Luma([if on_ring || grid { 0 } else { 255 }])
             });
             let path = site.sheets_dir().join(format!("{id}.png"));
-            std::fs::write(&path, crate::raster::encode_png_with_dpi(&img, 200.0).unwrap()).unwrap();
+            std::fs::write(
+                &path,
+                crate::raster::encode_png_with_dpi(&img, 200.0).unwrap(),
+            )
+            .unwrap();
             crate::sheets::register_sheet(&site, &path).unwrap();
             let mut doc = store.load(&id).unwrap();
             for (k, (cx, cy)) in centres.iter().enumerate() {
@@ -493,23 +515,50 @@ mod tests {
         let out = build_library(&site, &CropRequest::default(), &|_| {}).unwrap();
         let lib = out.library;
         assert!(!lib.records.is_empty());
-        assert!(lib.records.iter().all(|r| r.sheet != "sheet-1" && r.sheet != "sheet-3"));
-        assert!(lib.manifest.sheets.iter().all(|s| !site.is_held_out(&s.sheet)));
+        assert!(
+            lib.records
+                .iter()
+                .all(|r| r.sheet != "sheet-1" && r.sheet != "sheet-3")
+        );
+        assert!(
+            lib.manifest
+                .sheets
+                .iter()
+                .all(|s| !site.is_held_out(&s.sheet))
+        );
         assert_eq!(lib.manifest.held_out, vec!["sheet-1", "sheet-3"]);
         // 3 sheets x 2 symbols x (1 + 2 jitter copies).
         assert_eq!(lib.manifest.counts.positive, 18);
         // Validation is by sheet: every crop of a sheet has that sheet's split.
         for s in &lib.manifest.sheets {
-            assert!(lib.records.iter().filter(|r| r.sheet == s.sheet).all(|r| r.split == s.split));
+            assert!(
+                lib.records
+                    .iter()
+                    .filter(|r| r.sheet == s.sheet)
+                    .all(|r| r.split == s.split)
+            );
         }
-        assert_eq!(lib.manifest.sheets.iter().filter(|s| s.split == CropSplit::Validation).count(), 1);
+        assert_eq!(
+            lib.manifest
+                .sheets
+                .iter()
+                .filter(|s| s.split == CropSplit::Validation)
+                .count(),
+            1
+        );
     }
 
     #[test]
     fn positives_are_centred_and_negatives_hold_no_symbol_centre() {
         let (_d, site) = tiny_site(2, &[]);
-        let lib = build_library(&site, &CropRequest::default(), &|_| {}).unwrap().library;
-        let first = lib.records.iter().find(|r| r.kind == CropKind::Positive).unwrap();
+        let lib = build_library(&site, &CropRequest::default(), &|_| {})
+            .unwrap()
+            .library;
+        let first = lib
+            .records
+            .iter()
+            .find(|r| r.kind == CropKind::Positive)
+            .unwrap();
         // Symbol centre (60, 60), window 32: left = round(60 - 16) = 44.
         assert_eq!((first.x, first.y), (44, 44));
         let pixels = lib.load_pixels(first).unwrap();
@@ -531,13 +580,24 @@ mod tests {
         let b = build_library(&site, &CropRequest::default(), &|_| {}).unwrap();
         assert!(b.reused);
         assert_eq!(a.library.manifest.id, b.library.manifest.id);
-        let other = build_library(&site, &CropRequest { seed: Some(99), hard_negatives: None }, &|_| {}).unwrap();
+        let other = build_library(
+            &site,
+            &CropRequest {
+                seed: Some(99),
+                hard_negatives: None,
+            },
+            &|_| {},
+        )
+        .unwrap();
         assert_ne!(other.library.manifest.id, a.library.manifest.id);
         // Rebuilding from scratch gives the same index bytes.
         let index_a = std::fs::read(a.library.dir.join("index.csv")).unwrap();
         std::fs::remove_dir_all(&a.library.dir).unwrap();
         let c = build_library(&site, &CropRequest::default(), &|_| {}).unwrap();
-        assert_eq!(std::fs::read(c.library.dir.join("index.csv")).unwrap(), index_a);
+        assert_eq!(
+            std::fs::read(c.library.dir.join("index.csv")).unwrap(),
+            index_a
+        );
     }
 
     #[test]
@@ -556,7 +616,7 @@ mod tests {
             schema_version: 1,
             model: None,
             detections: vec![
-                det("sheet-0", 60.0, 60.0, 0.99),  // a true symbol: not a hard negative
+                det("sheet-0", 60.0, 60.0, 0.99), // a true symbol: not a hard negative
                 det("sheet-0", 150.0, 170.0, 0.8), // a false alarm
                 det("sheet-2", 150.0, 170.0, 0.9), // held out: dropped
             ],
@@ -565,33 +625,54 @@ mod tests {
         crate::detections::write_detections(&path, &set).unwrap();
         let out = build_library(
             &site,
-            &CropRequest { seed: None, hard_negatives: Some(path) },
+            &CropRequest {
+                seed: None,
+                hard_negatives: Some(path),
+            },
             &|_| {},
         )
         .unwrap();
         assert_eq!(out.dropped_held_out_detections, 1);
-        let hard: Vec<_> = out.library.records.iter().filter(|r| r.kind == CropKind::HardNegative).collect();
+        let hard: Vec<_> = out
+            .library
+            .records
+            .iter()
+            .filter(|r| r.kind == CropKind::HardNegative)
+            .collect();
         assert_eq!(hard.len(), 1);
-        assert_eq!((hard[0].sheet.as_str(), hard[0].x, hard[0].y), ("sheet-0", 134, 154));
+        assert_eq!(
+            (hard[0].sheet.as_str(), hard[0].x, hard[0].y),
+            ("sheet-0", 134, 154)
+        );
     }
 
     #[test]
     fn tampered_crop_and_index_are_detected() {
         let (_d, site) = tiny_site(2, &[]);
-        let lib = build_library(&site, &CropRequest::default(), &|_| {}).unwrap().library;
+        let lib = build_library(&site, &CropRequest::default(), &|_| {})
+            .unwrap()
+            .library;
         let rec = &lib.records[0];
         let img_path = lib.dir.join(&rec.file);
         let mut bytes = std::fs::read(&img_path).unwrap();
         let last = bytes.len() - 20;
         bytes[last] ^= 0xff;
         std::fs::write(&img_path, bytes).unwrap();
-        assert!(lib.load_pixels(rec).unwrap_err().to_string().contains("hash"));
+        assert!(
+            lib.load_pixels(rec)
+                .unwrap_err()
+                .to_string()
+                .contains("hash")
+        );
         let index = lib.dir.join("index.csv");
         let mut text = std::fs::read_to_string(&index).unwrap();
         text.push_str("extra\n");
         std::fs::write(&index, text).unwrap();
         let msg = CropLibrary::open(&lib.dir).unwrap_err().to_string();
-        assert!(msg.contains("index.csv") && msg.contains("crops build"), "{msg}");
+        assert!(
+            msg.contains("index.csv") && msg.contains("crops build"),
+            "{msg}"
+        );
     }
 
     #[test]
@@ -601,8 +682,15 @@ mod tests {
         let mut doc = store.load("sheet-0").unwrap();
         doc.symbols[1].bbox.x = 290.0;
         store.save(&doc, "t").unwrap();
-        let msg = build_library(&site, &CropRequest::default(), &|_| {}).unwrap_err().to_string();
-        assert!(msg.contains("sheet-0.json") && msg.contains("s1") && msg.contains("outside"), "{msg}");
-        assert!(!site.crops_dir().exists() || std::fs::read_dir(site.crops_dir()).unwrap().count() == 0);
+        let msg = build_library(&site, &CropRequest::default(), &|_| {})
+            .unwrap_err()
+            .to_string();
+        assert!(
+            msg.contains("sheet-0.json") && msg.contains("s1") && msg.contains("outside"),
+            "{msg}"
+        );
+        assert!(
+            !site.crops_dir().exists() || std::fs::read_dir(site.crops_dir()).unwrap().count() == 0
+        );
     }
 }

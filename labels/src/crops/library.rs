@@ -259,7 +259,10 @@ impl CropLibrary {
         if found != record.sha256 {
             return Err(LabelError::CropLibrary {
                 path,
-                message: format!("image hash {found} does not match the index's {}", record.sha256),
+                message: format!(
+                    "image hash {found} does not match the index's {}",
+                    record.sha256
+                ),
             });
         }
         let img = image::load_from_memory_with_format(&bytes, image::ImageFormat::Png)

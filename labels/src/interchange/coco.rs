@@ -211,7 +211,10 @@ pub fn parse(path: &Path, text: &str) -> Result<Vec<CocoRow>> {
         let [x, y, w, h] = a.bbox[..] else {
             return Err(at.error(
                 path,
-                format!("bbox has {} numbers; it must be [x, y, width, height]", a.bbox.len()),
+                format!(
+                    "bbox has {} numbers; it must be [x, y, width, height]",
+                    a.bbox.len()
+                ),
             ));
         };
         let (id, state) = match &a.symtrust {
@@ -270,7 +273,10 @@ mod tests {
         assert_eq!(a["symtrust"]["symbol"], "s0001");
         assert_eq!(v["images"][0]["file_name"], "sheets/s1.png");
         assert_eq!(v["images"][0]["width"], 1000);
-        assert_eq!(v["categories"][0], serde_json::json!({"id": 1, "name": "valve"}));
+        assert_eq!(
+            v["categories"][0],
+            serde_json::json!({"id": 1, "name": "valve"})
+        );
     }
 
     #[test]
@@ -311,17 +317,34 @@ mod tests {
             )
         };
         for (ann, needle) in [
-            (r#"{"id": 2, "image_id": 5, "category_id": 1, "bbox": [1, 1, 2, 2]}"#, "image_id 5"),
-            (r#"{"id": 2, "image_id": 1, "category_id": 9, "bbox": [1, 1, 2, 2]}"#, "category_id 9"),
-            (r#"{"id": 2, "image_id": 1, "category_id": 1, "bbox": [1, 1, 2]}"#, "3 numbers"),
-            (r#"{"id": 2, "image_id": 1, "category_id": 1, "bbox": [1, 1, 2, 2], "iscrowd": 1}"#, "crowd"),
+            (
+                r#"{"id": 2, "image_id": 5, "category_id": 1, "bbox": [1, 1, 2, 2]}"#,
+                "image_id 5",
+            ),
+            (
+                r#"{"id": 2, "image_id": 1, "category_id": 9, "bbox": [1, 1, 2, 2]}"#,
+                "category_id 9",
+            ),
+            (
+                r#"{"id": 2, "image_id": 1, "category_id": 1, "bbox": [1, 1, 2]}"#,
+                "3 numbers",
+            ),
+            (
+                r#"{"id": 2, "image_id": 1, "category_id": 1, "bbox": [1, 1, 2, 2], "iscrowd": 1}"#,
+                "crowd",
+            ),
             (
                 r#"{"id": 2, "image_id": 1, "category_id": 1, "bbox": [1, 1, 2, 2], "symtrust": {"symbol": "a", "state": "ok"}}"#,
                 "symtrust.state",
             ),
         ] {
-            let msg = parse(Path::new("in/c.json"), &base(ann)).unwrap_err().to_string();
-            assert!(msg.starts_with("in/c.json: annotations[1]:") && msg.contains(needle), "{msg}");
+            let msg = parse(Path::new("in/c.json"), &base(ann))
+                .unwrap_err()
+                .to_string();
+            assert!(
+                msg.starts_with("in/c.json: annotations[1]:") && msg.contains(needle),
+                "{msg}"
+            );
         }
     }
 
@@ -330,7 +353,10 @@ mod tests {
         let text = String::from_utf8(render(&[sample_doc()], &classes(), "n")).unwrap();
         let cut = &text[..text.len() * 2 / 3];
         let err = parse(Path::new("c.json"), cut).unwrap_err();
-        assert!(matches!(err, LabelError::Json { line, .. } if line > 1), "{err}");
+        assert!(
+            matches!(err, LabelError::Json { line, .. } if line > 1),
+            "{err}"
+        );
         assert!(err.to_string().starts_with("c.json:"), "{err}");
     }
 }

@@ -151,27 +151,50 @@ mod tests {
         let err = parse(Path::new("in/labels.csv"), cut.as_bytes()).unwrap_err();
         let msg = err.to_string();
         assert!(matches!(err, LabelError::Csv { line: 4, .. }), "{msg}");
-        assert!(msg.starts_with("in/labels.csv:4:") && msg.contains("truncated"), "{msg}");
+        assert!(
+            msg.starts_with("in/labels.csv:4:") && msg.contains("truncated"),
+            "{msg}"
+        );
     }
 
     #[test]
     fn bad_number_and_state_name_the_line() {
         let text = "sheet,id,class,x,y,w,h,state\nfp-1,a,pump,1,2,3,4,draft\nfp-1,b,pump,1,zwei,3,4,draft\n";
-        let msg = parse(Path::new("l.csv"), text.as_bytes()).unwrap_err().to_string();
-        assert!(msg.starts_with("l.csv:3:") && msg.contains("\"zwei\""), "{msg}");
+        let msg = parse(Path::new("l.csv"), text.as_bytes())
+            .unwrap_err()
+            .to_string();
+        assert!(
+            msg.starts_with("l.csv:3:") && msg.contains("\"zwei\""),
+            "{msg}"
+        );
         let text = "sheet,id,class,x,y,w,h,state\nfp-1,a,pump,1,2,3,NaN,draft\n";
-        let msg = parse(Path::new("l.csv"), text.as_bytes()).unwrap_err().to_string();
-        assert!(msg.starts_with("l.csv:2:") && msg.contains("finite"), "{msg}");
+        let msg = parse(Path::new("l.csv"), text.as_bytes())
+            .unwrap_err()
+            .to_string();
+        assert!(
+            msg.starts_with("l.csv:2:") && msg.contains("finite"),
+            "{msg}"
+        );
         let text = "sheet,id,class,x,y,w,h,state\nfp-1,a,pump,1,2,3,4,done\n";
-        let msg = parse(Path::new("l.csv"), text.as_bytes()).unwrap_err().to_string();
-        assert!(msg.starts_with("l.csv:2:") && msg.contains("draft, accepted or rejected"), "{msg}");
+        let msg = parse(Path::new("l.csv"), text.as_bytes())
+            .unwrap_err()
+            .to_string();
+        assert!(
+            msg.starts_with("l.csv:2:") && msg.contains("draft, accepted or rejected"),
+            "{msg}"
+        );
     }
 
     #[test]
     fn wrong_header_is_refused() {
         let text = "sheet,class,x,y,w,h\nfp-1,pump,1,2,3,4\n";
-        let msg = parse(Path::new("l.csv"), text.as_bytes()).unwrap_err().to_string();
-        assert!(msg.starts_with("l.csv:1:") && msg.contains("sheet,id,class,x,y,w,h,state"), "{msg}");
+        let msg = parse(Path::new("l.csv"), text.as_bytes())
+            .unwrap_err()
+            .to_string();
+        assert!(
+            msg.starts_with("l.csv:1:") && msg.contains("sheet,id,class,x,y,w,h,state"),
+            "{msg}"
+        );
         let msg = parse(Path::new("l.csv"), b"").unwrap_err().to_string();
         assert!(msg.starts_with("l.csv:1:"), "{msg}");
     }

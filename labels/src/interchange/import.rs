@@ -74,16 +74,20 @@ pub fn import_file(site: &Site, format: Format, path: &Path) -> Result<ImportRep
         Format::Csv => csv_rows::parse(path, &bytes)?,
         Format::Coco => {
             let text = std::str::from_utf8(&bytes).map_err(|e| {
-                LabelError::invalid(path, format!("not UTF-8 text (byte {}): not a JSON file", e.valid_up_to()))
+                LabelError::invalid(
+                    path,
+                    format!("not UTF-8 text (byte {}): not a JSON file", e.valid_up_to()),
+                )
             })?;
             resolve_coco(path, coco::parse(path, text)?, &registry)?
         }
     };
     let classes = site.config.class_names();
     let per_sheet = validate(path, rows, &registry, &classes)?;
-    let source = path
-        .file_name()
-        .map_or_else(|| path.display().to_string(), |n| n.to_string_lossy().into_owned());
+    let source = path.file_name().map_or_else(
+        || path.display().to_string(),
+        |n| n.to_string_lossy().into_owned(),
+    );
     let mut report = ImportReport {
         file: path.display().to_string(),
         format,
@@ -136,8 +140,10 @@ fn resolve_coco(
     let mut out = Vec::with_capacity(rows.len());
     for r in rows {
         let name = r.file_name.trim_start_matches("./");
-        let by_base: Vec<&&LabelDocument> =
-            docs.iter().filter(|d| base(&d.sheet.file) == base(name)).collect();
+        let by_base: Vec<&&LabelDocument> = docs
+            .iter()
+            .filter(|d| base(&d.sheet.file) == base(name))
+            .collect();
         let stem = Path::new(&base(name))
             .file_stem()
             .map(|s| s.to_string_lossy().into_owned())
@@ -249,7 +255,10 @@ fn validate(
                 ),
             ));
         }
-        per_sheet.entry(row.sheet.clone()).or_default().push((at, row));
+        per_sheet
+            .entry(row.sheet.clone())
+            .or_default()
+            .push((at, row));
     }
     Ok(per_sheet)
 }
@@ -310,7 +319,11 @@ fn apply(
                     ));
                 }
                 if s.state != row.state {
-                    diffs.push(format!("state {} -> {}", s.state.as_str(), row.state.as_str()));
+                    diffs.push(format!(
+                        "state {} -> {}",
+                        s.state.as_str(),
+                        row.state.as_str()
+                    ));
                 }
                 if diffs.is_empty() {
                     report.unchanged += 1;
@@ -384,11 +397,25 @@ mod tests {
             row("s0009", "pump", 500.0, ReviewState::Draft),
         ];
         assert!(apply(&mut doc, &rows, "in.csv", "ben", "T", &mut r));
-        assert_eq!((r.added, r.updated, r.unchanged, r.skipped.len()), (1, 1, 1, 0));
-        assert_eq!(doc.symbols[0], original.symbols[0], "unchanged symbol untouched");
+        assert_eq!(
+            (r.added, r.updated, r.unchanged, r.skipped.len()),
+            (1, 1, 1, 0)
+        );
+        assert_eq!(
+            doc.symbols[0], original.symbols[0],
+            "unchanged symbol untouched"
+        );
         let s2 = doc.symbol("s0002").unwrap();
-        assert_eq!((s2.class.as_str(), s2.bbox.x, s2.state), ("valve", 300.0, ReviewState::Accepted));
-        assert_eq!(s2.origin, Origin::Imported { source: "in.csv".into() });
+        assert_eq!(
+            (s2.class.as_str(), s2.bbox.x, s2.state),
+            ("valve", 300.0, ReviewState::Accepted)
+        );
+        assert_eq!(
+            s2.origin,
+            Origin::Imported {
+                source: "in.csv".into()
+            }
+        );
         assert_eq!((s2.by.as_str(), s2.at.as_str()), ("ben", "T"));
         assert_eq!(doc.symbol("s0009").unwrap().bbox.x, 500.0);
     }
@@ -403,9 +430,21 @@ mod tests {
         assert_eq!(doc, original);
         assert_eq!(r.skipped.len(), 1);
         let s = &r.skipped[0];
-        assert_eq!((s.sheet.as_str(), s.id.as_str(), s.location), ("s1", "s0001", Location::Line(2)));
-        assert!(s.reason.contains("box (100, 100, 80, 80) -> (101, 100, 80, 80)"), "{}", s.reason);
-        assert!(s.reason.contains("state accepted -> rejected"), "{}", s.reason);
+        assert_eq!(
+            (s.sheet.as_str(), s.id.as_str(), s.location),
+            ("s1", "s0001", Location::Line(2))
+        );
+        assert!(
+            s.reason
+                .contains("box (100, 100, 80, 80) -> (101, 100, 80, 80)"),
+            "{}",
+            s.reason
+        );
+        assert!(
+            s.reason.contains("state accepted -> rejected"),
+            "{}",
+            s.reason
+        );
     }
 
     #[test]
@@ -418,8 +457,20 @@ mod tests {
             row("", "pump", 700.0, ReviewState::Draft),
         ];
         assert!(apply(&mut doc, &rows, "in.csv", "ben", "T", &mut r));
-        let ids: Vec<(&str, f64)> = doc.symbols.iter().map(|s| (s.id.as_str(), s.bbox.x)).collect();
-        assert_eq!(ids, vec![("s0001", 100.0), ("s0002", 500.0), ("s0003", 300.0), ("s0004", 700.0)]);
+        let ids: Vec<(&str, f64)> = doc
+            .symbols
+            .iter()
+            .map(|s| (s.id.as_str(), s.bbox.x))
+            .collect();
+        assert_eq!(
+            ids,
+            vec![
+                ("s0001", 100.0),
+                ("s0002", 500.0),
+                ("s0003", 300.0),
+                ("s0004", 700.0)
+            ]
+        );
         // The same rows again change nothing.
         let mut r = report();
         assert!(!apply(&mut doc, &rows, "in.csv", "ben", "T", &mut r));

@@ -84,7 +84,10 @@ impl Degradation {
 
     /// Only a skew (no flips, blur or noise), for checking box transforms.
     pub fn skew_only(max_skew_deg: f64) -> Self {
-        Self { max_skew_deg, ..Self::none() }
+        Self {
+            max_skew_deg,
+            ..Self::none()
+        }
     }
 
     fn flips(&self) -> bool {
@@ -110,7 +113,11 @@ pub(crate) fn capped_distance_sq(m: &Mask, cap: usize) -> Vec<u8> {
         let row = &m.data[j * w..(j + 1) * w];
         for i in 0..w {
             let k = j * w + i;
-            let (pi, pp) = if j > 0 { (ci[k - w], cp[k - w]) } else { (far, far) };
+            let (pi, pp) = if j > 0 {
+                (ci[k - w], cp[k - w])
+            } else {
+                (far, far)
+            };
             if row[i] != 0 {
                 ci[k] = 0;
                 cp[k] = pp.saturating_add(1).min(far);
@@ -209,7 +216,11 @@ fn pass(m: &Mask, k: usize, dilate: bool) -> Mask {
         for (i, o) in out.iter_mut().enumerate() {
             let (a, b) = window(i, w);
             let s = &row[a..=b];
-            *o = if dilate { *s.iter().max().unwrap() } else { *s.iter().min().unwrap() };
+            *o = if dilate {
+                *s.iter().max().unwrap()
+            } else {
+                *s.iter().min().unwrap()
+            };
         }
     });
     let mut data = vec![0u8; w * h];
@@ -223,7 +234,11 @@ fn pass(m: &Mask, k: usize, dilate: bool) -> Mask {
             }
         }
     });
-    Mask { width: m.width, height: m.height, data }
+    Mask {
+        width: m.width,
+        height: m.height,
+        data,
+    }
 }
 
 /// Separable Gaussian blur of a grey buffer (fixed-point weights).
@@ -239,7 +254,10 @@ fn blur(img: &mut [u8], w: usize, h: usize, sigma: f64) {
         })
         .collect();
     let sum: f64 = raw.iter().sum();
-    let wts: Vec<u32> = raw.iter().map(|v| (v / sum * 4096.0).round() as u32).collect();
+    let wts: Vec<u32> = raw
+        .iter()
+        .map(|v| (v / sum * 4096.0).round() as u32)
+        .collect();
     let norm: u32 = wts.iter().sum();
     let mut tmp = vec![0u8; w * h];
     tmp.par_chunks_mut(w).enumerate().for_each(|(j, out)| {
@@ -277,7 +295,12 @@ pub(crate) fn rotate_point(p: (f64, f64), theta: f64, c: (f64, f64)) -> (f64, f6
 
 /// The axis-aligned bounds of a box's four corners after the rotation.
 pub(crate) fn rotate_box(b: &BBox, theta: f64, c: (f64, f64)) -> BBox {
-    let corners = [(b.x, b.y), (b.right(), b.y), (b.x, b.bottom()), (b.right(), b.bottom())];
+    let corners = [
+        (b.x, b.y),
+        (b.right(), b.y),
+        (b.x, b.bottom()),
+        (b.right(), b.bottom()),
+    ];
     let pts: Vec<(f64, f64)> = corners.iter().map(|p| rotate_point(*p, theta, c)).collect();
     let x0 = pts.iter().map(|p| p.0).fold(f64::INFINITY, f64::min);
     let x1 = pts.iter().map(|p| p.0).fold(f64::NEG_INFINITY, f64::max);
@@ -329,13 +352,20 @@ fn paper_and_noise(img: &mut [u8], w: usize, d: &Degradation, seed: u64) {
                 let sum: u64 = (0..4).map(|k| (r >> (16 * k)) & 0xffff).sum();
                 n = (sum as f64 - 131_070.0) / 37_837.0 * d.noise_sd;
             }
-            *v = (d.ink_level + span * f64::from(*v) + n).round().clamp(0.0, 255.0) as u8;
+            *v = (d.ink_level + span * f64::from(*v) + n)
+                .round()
+                .clamp(0.0, 255.0) as u8;
         }
     });
 }
 
 /// Degrades a clean mask into a grey scan; returns the image and the skew (radians).
-pub(crate) fn degrade(mask: &Mask, d: &Degradation, dpi: f64, rng: &mut SeededRng) -> (GrayImage, f64) {
+pub(crate) fn degrade(
+    mask: &Mask,
+    d: &Degradation,
+    dpi: f64,
+    rng: &mut SeededRng,
+) -> (GrayImage, f64) {
     let flip_seed = rng.next_u64();
     let noise_seed = rng.next_u64();
     let theta = if d.max_skew_deg > 0.0 {
@@ -352,7 +382,11 @@ pub(crate) fn degrade(mask: &Mask, d: &Degradation, dpi: f64, rng: &mut SeededRn
     if k > 1 {
         m = closing(&m, k);
     }
-    let mut grey: Vec<u8> = m.data.iter().map(|v| if *v != 0 { 0 } else { 255 }).collect();
+    let mut grey: Vec<u8> = m
+        .data
+        .iter()
+        .map(|v| if *v != 0 { 0 } else { 255 })
+        .collect();
     blur(&mut grey, w, h, d.blur_sigma * dpi / 200.0);
     if theta != 0.0 {
         grey = rotate(&grey, w, h, theta);
@@ -432,7 +466,11 @@ mod tests {
                 ero[(y * w + x) as usize] = v;
             }
         }
-        Mask { width: m.width, height: m.height, data: ero }
+        Mask {
+            width: m.width,
+            height: m.height,
+            data: ero,
+        }
     }
 
     proptest! {

@@ -159,7 +159,10 @@ pub(crate) fn compose(
         height: size_px.1,
         items: b.items,
         symbols: b.symbols,
-        ignore: vec![(title_px, "title block".to_string()), (legend_px, "legend".to_string())],
+        ignore: vec![
+            (title_px, "title block".to_string()),
+            (legend_px, "legend".to_string()),
+        ],
     }
 }
 
@@ -187,7 +190,10 @@ impl Builder<'_> {
     }
 
     fn push(&mut self, prims: Vec<Prim>) {
-        self.items.push(Item { prims, symbol: None });
+        self.items.push(Item {
+            prims,
+            symbol: None,
+        });
     }
 
     fn extent_mm(&self, prims: &[Prim]) -> BBox {
@@ -216,7 +222,8 @@ impl Builder<'_> {
         self.g().polyline(pts, self.st.process_line_mm, &mut prims);
         self.push(prims);
         for w in pts.windows(2) {
-            self.lines.push(seg_box(w[0], w[1], self.st.process_line_mm / 2.0 + 0.8));
+            self.lines
+                .push(seg_box(w[0], w[1], self.st.process_line_mm / 2.0 + 0.8));
             self.runs.push((w[0], w[1]));
         }
     }
@@ -272,7 +279,10 @@ impl Builder<'_> {
             bbox: px,
             tag: tag.map(|(a, b)| format!("{a}-{b}")),
         });
-        self.items.push(Item { prims, symbol: Some(idx) });
+        self.items.push(Item {
+            prims,
+            symbol: Some(idx),
+        });
         let mm = px.scaled(1.0 / self.s);
         self.objects.push(grow(&mm, 2.0));
         mm
@@ -285,11 +295,21 @@ impl Builder<'_> {
 
     /// Places an instrument bubble at the first free candidate centre; returns
     /// the centre and the symbol index.
-    fn bubble(&mut self, class: Class, letters: &str, number: u32, cands: &[(f64, f64)]) -> Option<((f64, f64), usize)> {
+    fn bubble(
+        &mut self,
+        class: Class,
+        letters: &str,
+        number: u32,
+        cands: &[(f64, f64)],
+    ) -> Option<((f64, f64), usize)> {
         for &c in cands {
             if self.free(&grow(&self.bubble_extent(c), 2.5), true) {
                 let idx = self.symbols.len();
-                self.symbol(class, self.at(c), Some((letters.to_string(), number.to_string())));
+                self.symbol(
+                    class,
+                    self.at(c),
+                    Some((letters.to_string(), number.to_string())),
+                );
                 return Some((c, idx));
             }
         }
@@ -299,14 +319,24 @@ impl Builder<'_> {
     fn frame(&mut self, f: &BBox) {
         let st = self.st;
         let mut prims = Vec::new();
-        self.g().rect(f.center(), f.w, f.h, 0.0, st.frame_mm, &mut prims);
+        self.g()
+            .rect(f.center(), f.w, f.h, 0.0, st.frame_mm, &mut prims);
         // Grid reference zones (ISO 5457, from memory): numbers along the top,
         // letters down the left, no I or O.
         let nx = ((f.w / 50.0).round() as usize).max(2);
         let ny = ((f.h / 50.0).round() as usize).max(2);
         for k in 0..nx {
             let x = f.x + f.w * (k as f64 + 0.5) / nx as f64;
-            font::text(&self.g(), &format!("{}", k + 1), x, f.y - 3.0, st.tag_text_mm, Anchor::Centre, &st, &mut prims);
+            font::text(
+                &self.g(),
+                &format!("{}", k + 1),
+                x,
+                f.y - 3.0,
+                st.tag_text_mm,
+                Anchor::Centre,
+                &st,
+                &mut prims,
+            );
             if k > 0 {
                 let xt = f.x + f.w * k as f64 / nx as f64;
                 prims.push(self.g().seg((xt, f.y - 5.0), (xt, f.y), st.thin_mm));
@@ -316,7 +346,16 @@ impl Builder<'_> {
         for k in 0..ny.min(letters.len()) {
             let y = f.y + f.h * (k as f64 + 0.5) / ny as f64;
             let l = letters[k].to_string();
-            font::text(&self.g(), &l, f.x - 10.0, y + st.tag_text_mm / 2.0, st.tag_text_mm, Anchor::Centre, &st, &mut prims);
+            font::text(
+                &self.g(),
+                &l,
+                f.x - 10.0,
+                y + st.tag_text_mm / 2.0,
+                st.tag_text_mm,
+                Anchor::Centre,
+                &st,
+                &mut prims,
+            );
             if k > 0 {
                 let yt = f.y + f.h * k as f64 / ny as f64;
                 prims.push(self.g().seg((f.x - 5.0, yt), (f.x, yt), st.thin_mm));
@@ -329,7 +368,14 @@ impl Builder<'_> {
         let st = self.st;
         let g = self.g();
         let mut prims = Vec::new();
-        g.rect(t.center(), t.w, t.h, st.title_corner_mm, st.frame_mm, &mut prims);
+        g.rect(
+            t.center(),
+            t.w,
+            t.h,
+            st.title_corner_mm,
+            st.frame_mm,
+            &mut prims,
+        );
         let rows = [0.42, 0.62, 0.81];
         for r in rows {
             let y = t.y + t.h * r;
@@ -339,15 +385,44 @@ impl Builder<'_> {
         prims.push(g.seg((xm, t.y + t.h * rows[1]), (xm, t.bottom()), st.thin_mm));
         let pad = 3.0;
         let title = format!("UNIT {} TRANSFER", sheet_no * 100);
-        font::text(&g, &title, t.x + pad, t.y + t.h * 0.3, st.title_text_mm, Anchor::Left, &st, &mut prims);
+        font::text(
+            &g,
+            &title,
+            t.x + pad,
+            t.y + t.h * 0.3,
+            st.title_text_mm,
+            Anchor::Left,
+            &st,
+            &mut prims,
+        );
         let h = st.text_mm;
         let line = |prims: &mut Vec<Prim>, s: &str, x: f64, row: f64| {
             font::text(&g, s, x, t.y + t.h * row - 1.2, h, Anchor::Left, &st, prims);
         };
-        line(&mut prims, "FICTIONAL PLANT - SYNTHETIC SHEET", t.x + pad, rows[1]);
-        line(&mut prims, "PIPING AND INSTRUMENTATION DIAGRAM", t.x + pad, rows[2]);
-        line(&mut prims, &format!("DWG {}", id.to_ascii_uppercase()), t.x + pad, 1.0);
-        line(&mut prims, &format!("SHEET {sheet_no}  REV {}", 1 + self.rng.below(4)), xm + pad, rows[2]);
+        line(
+            &mut prims,
+            "FICTIONAL PLANT - SYNTHETIC SHEET",
+            t.x + pad,
+            rows[1],
+        );
+        line(
+            &mut prims,
+            "PIPING AND INSTRUMENTATION DIAGRAM",
+            t.x + pad,
+            rows[2],
+        );
+        line(
+            &mut prims,
+            &format!("DWG {}", id.to_ascii_uppercase()),
+            t.x + pad,
+            1.0,
+        );
+        line(
+            &mut prims,
+            &format!("SHEET {sheet_no}  REV {}", 1 + self.rng.below(4)),
+            xm + pad,
+            rows[2],
+        );
         line(&mut prims, "SCALE NTS", xm + pad, 1.0);
         let e = union_extent(&prims).expect("title block has strokes");
         self.push(prims);
@@ -358,15 +433,40 @@ impl Builder<'_> {
         let st = self.st;
         let g = self.g();
         let mut prims = Vec::new();
-        g.rect(l.center(), l.w, l.h, st.title_corner_mm, st.frame_mm, &mut prims);
-        font::text(&g, "LEGEND", l.x + 4.0, l.y + 9.0, st.text_mm, Anchor::Left, &st, &mut prims);
+        g.rect(
+            l.center(),
+            l.w,
+            l.h,
+            st.title_corner_mm,
+            st.frame_mm,
+            &mut prims,
+        );
+        font::text(
+            &g,
+            "LEGEND",
+            l.x + 4.0,
+            l.y + 9.0,
+            st.text_mm,
+            Anchor::Left,
+            &st,
+            &mut prims,
+        );
         prims.push(g.seg((l.x, l.y + 12.0), (l.right(), l.y + 12.0), st.thin_mm));
         for (k, class) in Class::ALL.iter().enumerate() {
             let cy = l.y + 14.0 + 16.0 * (k as f64 + 0.5);
             let pl = self.at((l.x + 11.0, cy));
             symbols::draw_class(&pl, *class, &st, None, &mut prims);
             let name = class.name().to_ascii_uppercase();
-            font::text(&g, &name, l.x + 21.0, cy + st.text_mm / 2.0, st.text_mm, Anchor::Left, &st, &mut prims);
+            font::text(
+                &g,
+                &name,
+                l.x + 21.0,
+                cy + st.text_mm / 2.0,
+                st.text_mm,
+                Anchor::Left,
+                &st,
+                &mut prims,
+            );
         }
         let e = union_extent(&prims).expect("legend has strokes");
         self.push(prims);
@@ -382,8 +482,17 @@ impl Builder<'_> {
         let eq = match kind {
             0 | 1 => {
                 let column = kind == 1;
-                let w = if column { self.rng.range_f64(14.0, 18.0) } else { self.rng.range_f64(18.0, 26.0) };
-                let bh = if column { 0.4 * h } else { self.rng.range_f64(0.24, 0.32) * h }.min(110.0);
+                let w = if column {
+                    self.rng.range_f64(14.0, 18.0)
+                } else {
+                    self.rng.range_f64(18.0, 26.0)
+                };
+                let bh = if column {
+                    0.4 * h
+                } else {
+                    self.rng.range_f64(0.24, 0.32) * h
+                }
+                .min(110.0);
                 let c = (ex, top + w / 4.0 + bh / 2.0);
                 symbols::vertical_vessel(&self.at(c), &st, w, bh, column, &mut prims);
                 let body = BBox::new(ex - w / 2.0, top, w, bh + w / 2.0);
@@ -393,22 +502,36 @@ impl Builder<'_> {
                     outlet: (ex, body.bottom()),
                     outlet_dir: Dir::Down,
                     vent: Some((ex, top)),
-                    level_taps: Some(((ex + w / 2.0, top + w / 4.0 + 0.25 * bh), (ex + w / 2.0, top + w / 4.0 + 0.85 * bh))),
+                    level_taps: Some((
+                        (ex + w / 2.0, top + w / 4.0 + 0.25 * bh),
+                        (ex + w / 2.0, top + w / 4.0 + 0.85 * bh),
+                    )),
                     tag: format!("{}-{unit}", if column { "C" } else { "V" }),
                 }
             }
             2 => {
-                let (w, dh) = (self.rng.range_f64(34.0, 42.0), self.rng.range_f64(14.0, 18.0));
+                let (w, dh) = (
+                    self.rng.range_f64(34.0, 42.0),
+                    self.rng.range_f64(14.0, 18.0),
+                );
                 let c = (ex + 6.0, top + 14.0 + dh / 2.0);
                 symbols::horizontal_drum(&self.at(c), &st, w, dh, &mut prims);
-                let body = BBox::new(c.0 - w / 2.0 - dh / 4.0, c.1 - dh / 2.0, w + dh / 2.0, dh + 4.0);
+                let body = BBox::new(
+                    c.0 - w / 2.0 - dh / 4.0,
+                    c.1 - dh / 2.0,
+                    w + dh / 2.0,
+                    dh + 4.0,
+                );
                 Equipment {
                     body,
                     inlet: (c.0 - w / 2.0 - dh / 4.0, c.1),
                     outlet: (c.0 + w * 0.15, c.1 + dh / 2.0),
                     outlet_dir: Dir::Down,
                     vent: Some((c.0 - w * 0.2, c.1 - dh / 2.0)),
-                    level_taps: Some(((c.0 + w / 2.0 + dh / 4.0, c.1 - dh * 0.25), (c.0 + w / 2.0 + dh / 4.0, c.1 + dh * 0.25))),
+                    level_taps: Some((
+                        (c.0 + w / 2.0 + dh / 4.0, c.1 - dh * 0.25),
+                        (c.0 + w / 2.0 + dh / 4.0, c.1 + dh * 0.25),
+                    )),
                     tag: format!("D-{unit}"),
                 }
             }
@@ -422,7 +545,16 @@ impl Builder<'_> {
                 for (k, p) in cw.iter().enumerate() {
                     prims.push(self.g().seg(*p, (p.0, p.1 - 8.0), st.signal_line_mm * 2.0));
                     let lbl = if k == 0 { "CWS" } else { "CWR" };
-                    font::text(&self.g(), lbl, p.0, p.1 - 9.5, st.tag_text_mm, Anchor::Centre, &st, &mut prims);
+                    font::text(
+                        &self.g(),
+                        lbl,
+                        p.0,
+                        p.1 - 9.5,
+                        st.tag_text_mm,
+                        Anchor::Centre,
+                        &st,
+                        &mut prims,
+                    );
                 }
                 Equipment {
                     body: BBox::new(body.x, body.y - 13.0, body.w, body.h + 13.0),
@@ -435,7 +567,10 @@ impl Builder<'_> {
                 }
             }
             _ => {
-                let (w, th) = (self.rng.range_f64(28.0, 36.0), self.rng.range_f64(0.18, 0.24) * h);
+                let (w, th) = (
+                    self.rng.range_f64(28.0, 36.0),
+                    self.rng.range_f64(0.18, 0.24) * h,
+                );
                 let c = (ex, top + w * 0.12 + th / 2.0);
                 symbols::tank(&self.at(c), &st, w, th, &mut prims);
                 let body = BBox::new(ex - w / 2.0, top, w, th + w * 0.12);
@@ -445,7 +580,10 @@ impl Builder<'_> {
                     outlet: (ex + w / 2.0, body.bottom() - 4.0),
                     outlet_dir: Dir::Right,
                     vent: Some((ex, top)),
-                    level_taps: Some(((ex + w / 2.0, top + w * 0.12 + 0.2 * th), (ex + w / 2.0, body.bottom() - 10.0))),
+                    level_taps: Some((
+                        (ex + w / 2.0, top + w * 0.12 + 0.2 * th),
+                        (ex + w / 2.0, body.bottom() - 10.0),
+                    )),
                     tag: format!("TK-{unit}"),
                 }
             }
@@ -454,7 +592,13 @@ impl Builder<'_> {
         self.objects.push(grow(&eq.body, 1.0));
         let tag = eq.tag.clone();
         let tw = font::text_width_mm(&tag, st.text_mm, &st);
-        self.text(&tag, eq.body.x - tw - 3.0, eq.body.y + 6.0, st.text_mm, Anchor::Left);
+        self.text(
+            &tag,
+            eq.body.x - tw - 3.0,
+            eq.body.y + 6.0,
+            st.text_mm,
+            Anchor::Left,
+        );
         eq
     }
 
@@ -477,7 +621,8 @@ impl Builder<'_> {
         let mut prims = Vec::new();
         symbols::off_sheet(&self.at((x_feed, first.1)), &st, 12.0, &mut prims);
         self.push(prims);
-        self.objects.push(BBox::new(x_feed - 1.0, first.1 - 4.0, 14.0, 8.0));
+        self.objects
+            .push(BBox::new(x_feed - 1.0, first.1 - 4.0, 14.0, 8.0));
         self.process_line(&[(x_feed + 12.0, first.1), first]);
         self.text("FEED", x_feed, first.1 + 6.5, st.tag_text_mm, Anchor::Left);
         let mut routes = Vec::new();
@@ -504,7 +649,13 @@ impl Builder<'_> {
             }
             self.push(prims);
             self.objects.push(BBox::new(x1 - 1.0, y_h - 4.0, 14.0, 8.0));
-            self.text("TO FLARE", x1 - 4.0, y_h + 7.0, st.tag_text_mm, Anchor::Left);
+            self.text(
+                "TO FLARE",
+                x1 - 4.0,
+                y_h + 7.0,
+                st.tag_text_mm,
+                Anchor::Left,
+            );
             for v in &vents {
                 self.process_line(&[*v, (v.0, y_h)]);
             }
@@ -537,7 +688,10 @@ impl Builder<'_> {
         let has_pump = self.rng.chance(0.7);
         if has_pump {
             let (suction, discharge) = symbols::pump_ports(&st);
-            let pc = (x_down + 16.0 - suction.0 - st.pump_diameter_mm / 2.0, y_pump);
+            let pc = (
+                x_down + 16.0 - suction.0 - st.pump_diameter_mm / 2.0,
+                y_pump,
+            );
             pts.push((x_down, y_pump));
             pts.push((pc.0 + suction.0, pc.1 + suction.1));
             self.process_line(&pts);
@@ -545,7 +699,13 @@ impl Builder<'_> {
             let d = (pc.0 + discharge.0, pc.1 + discharge.1);
             pump_discharge = Some(d);
             let tag = format!("P-{unit}{}", if self.rng.chance(0.5) { "A" } else { "" });
-            self.text(&tag, pc.0 - 6.0, pc.1 + st.pump_diameter_mm / 2.0 + 6.0, st.text_mm, Anchor::Left);
+            self.text(
+                &tag,
+                pc.0 - 6.0,
+                pc.1 + st.pump_diameter_mm / 2.0 + 6.0,
+                st.text_mm,
+                Anchor::Left,
+            );
             pts = vec![d, (d.0 + 6.0, d.1), (d.0 + 6.0, y_route)];
             run_start_x = d.0 + 6.0;
         } else {
@@ -565,8 +725,15 @@ impl Builder<'_> {
             let mut prims = Vec::new();
             symbols::off_sheet(&self.at((x_end, y_route)), &st, 12.0, &mut prims);
             self.push(prims);
-            self.objects.push(BBox::new(x_end - 1.0, y_route - 4.0, 14.0, 8.0));
-            self.text("TO UNIT 900", x_end - 8.0, y_route + 7.0, st.tag_text_mm, Anchor::Left);
+            self.objects
+                .push(BBox::new(x_end - 1.0, y_route - 4.0, 14.0, 8.0));
+            self.text(
+                "TO UNIT 900",
+                x_end - 8.0,
+                y_route + 7.0,
+                st.tag_text_mm,
+                Anchor::Left,
+            );
         }
         let run = ((run_start_x, y_route), (x_rise, y_route));
         let run_len = x_rise - run_start_x;
@@ -597,25 +764,44 @@ impl Builder<'_> {
             BBox::new(c.0 - half, c.1 - lw, 2.0 * half, 2.0 * lw)
         };
         self.push(vec![Prim::Erase(erase.scaled(self.s))]);
-        let pl = Place { quarter_turns: if vertical { 1 } else { 0 }, ..self.at(c) };
+        let pl = Place {
+            quarter_turns: if vertical { 1 } else { 0 },
+            ..self.at(c)
+        };
         let symbol = self.symbols.len();
         self.symbol(Class::ControlValve, pl, None);
         let reach = st.actuator_stem_mm + st.actuator_width_mm / 2.0 + st.outline_mm / 2.0;
-        let tip = if vertical { (c.0 + reach, c.1) } else { (c.0, c.1 - reach) };
+        let tip = if vertical {
+            (c.0 + reach, c.1)
+        } else {
+            (c.0, c.1 - reach)
+        };
         // Block valves either side, sometimes.
         if self.rng.chance(0.45) {
             for sgn in [-1.0, 1.0] {
-                let hc = if vertical { (c.0, c.1 + sgn * 13.0) } else { (c.0 + sgn * 13.0, c.1) };
+                let hc = if vertical {
+                    (c.0, c.1 + sgn * 13.0)
+                } else {
+                    (c.0 + sgn * 13.0, c.1)
+                };
                 self.inline_shape(hc, vertical, 0);
             }
         }
-        ValveAt { centre: c, vertical, tip, symbol }
+        ValveAt {
+            centre: c,
+            vertical,
+            tip,
+            symbol,
+        }
     }
 
     /// Draws an unlabelled inline shape (0 hand valve, 1 ball valve, 2 reducer).
     fn inline_shape(&mut self, c: (f64, f64), vertical: bool, kind: u8) -> bool {
         let st = self.st;
-        let pl = Place { quarter_turns: if vertical { 1 } else { 0 }, ..self.at(c) };
+        let pl = Place {
+            quarter_turns: if vertical { 1 } else { 0 },
+            ..self.at(c)
+        };
         let mut prims = Vec::new();
         match kind {
             0 => symbols::hand_valve(&pl, &st, &mut prims),
@@ -656,12 +842,23 @@ impl Builder<'_> {
                 .iter()
                 .flat_map(|dx| [0.0, -8.0, 8.0].map(|dy| (t_hi.0 + dx, ty + dy)))
                 .collect();
-            let cls = if self.rng.chance(0.8) { Class::BubbleField } else { Class::BubbleBoard };
-            let letters = if cls == Class::BubbleField { "LT" } else { "LI" };
+            let cls = if self.rng.chance(0.8) {
+                Class::BubbleField
+            } else {
+                Class::BubbleBoard
+            };
+            let letters = if cls == Class::BubbleField {
+                "LT"
+            } else {
+                "LI"
+            };
             let number = self.next_loop();
             if let Some((c, idx)) = self.bubble(cls, letters, number, &cands) {
                 let xm = t_hi.0 + 4.0;
-                self.thin_line(&[t_hi, (xm, t_hi.1), (xm, c.1), (c.0 - rad, c.1)], st.signal_line_mm);
+                self.thin_line(
+                    &[t_hi, (xm, t_hi.1), (xm, c.1), (c.0 - rad, c.1)],
+                    st.signal_line_mm,
+                );
                 self.thin_line(&[t_lo, (xm, t_lo.1), (xm, c.1)], st.signal_line_mm);
                 if cls == Class::BubbleField {
                     transmitter = Some((c, idx, 'L', number));
@@ -671,14 +868,20 @@ impl Builder<'_> {
         // Flow (or other) transmitter on the discharge run.
         if let Some((a, b)) = r.run {
             let lo = a.0 + 6.0;
-            let hi = r.valve.filter(|v| !v.vertical).map_or(b.0 - 6.0, |v| v.centre.0 - 8.0);
+            let hi = r
+                .valve
+                .filter(|v| !v.vertical)
+                .map_or(b.0 - 6.0, |v| v.centre.0 - 8.0);
             if hi > lo && (transmitter.is_none() || self.rng.chance(0.4)) {
                 let x = self.rng.range_f64(lo, hi);
                 let cands: Vec<(f64, f64)> = [0.0, -6.0, 6.0, -12.0]
                     .iter()
                     .flat_map(|dx| [14.0, 20.0].map(|dy| (x + dx, a.1 - dy)))
                     .collect();
-                let first_letter = *self.rng.pick(&['F', 'F', 'P', 'T', 'A']).expect("non-empty");
+                let first_letter = *self
+                    .rng
+                    .pick(&['F', 'F', 'P', 'T', 'A'])
+                    .expect("non-empty");
                 let letters = format!("{first_letter}T");
                 let number = self.next_loop();
                 if let Some((c, idx)) = self.bubble(Class::BubbleField, &letters, number, &cands) {
@@ -699,10 +902,16 @@ impl Builder<'_> {
             } else {
                 [22.0, 28.0, 36.0]
                     .iter()
-                    .flat_map(|dy| [0.0, -10.0, 10.0, -18.0].map(|dx| (v.centre.0 + dx, v.centre.1 - dy)))
+                    .flat_map(|dy| {
+                        [0.0, -10.0, 10.0, -18.0].map(|dx| (v.centre.0 + dx, v.centre.1 - dy))
+                    })
                     .collect()
             };
-            let cls = if self.rng.chance(0.5) { Class::BubbleShared } else { Class::BubbleBoard };
+            let cls = if self.rng.chance(0.5) {
+                Class::BubbleShared
+            } else {
+                Class::BubbleBoard
+            };
             let fun = *self.rng.pick(&["IC", "IC", "RC", "C"]).expect("non-empty");
             let letters = format!("{letter}{fun}");
             if let Some((cc, c_idx)) = self.bubble(cls, &letters, number, &cands) {
@@ -712,9 +921,20 @@ impl Builder<'_> {
                 // An alarm on the controller, sometimes.
                 if self.rng.chance(0.45) {
                     let side = if self.rng.chance(0.5) { 1.0 } else { -1.0 };
-                    let cands = [(cc.0 + side * 20.0, cc.1), (cc.0 - side * 20.0, cc.1), (cc.0 + side * 26.0, cc.1 - 8.0)];
-                    let alarm = format!("{letter}{}", self.rng.pick(&["AH", "AL", "SH", "I", "R"]).expect("non-empty"));
-                    if let Some((ac, a_idx)) = self.bubble(Class::BubbleBoard, &alarm, number, &cands) {
+                    let cands = [
+                        (cc.0 + side * 20.0, cc.1),
+                        (cc.0 - side * 20.0, cc.1),
+                        (cc.0 + side * 26.0, cc.1 - 8.0),
+                    ];
+                    let alarm = format!(
+                        "{letter}{}",
+                        self.rng
+                            .pick(&["AH", "AL", "SH", "I", "R"])
+                            .expect("non-empty")
+                    );
+                    if let Some((ac, a_idx)) =
+                        self.bubble(Class::BubbleBoard, &alarm, number, &cands)
+                    {
                         self.signal(cc, rad, (ac, rad), None, &[c_idx, a_idx]);
                     }
                 }
@@ -727,11 +947,24 @@ impl Builder<'_> {
             e.vent.map(|v| (v.0 + e.body.w * 0.3, e.body.y + 2.0))
         };
         if let Some(p) = gauge_at {
-            let cands = [(p.0 + 2.0, p.1 - 14.0), (p.0 + 8.0, p.1 - 16.0), (p.0 - 6.0, p.1 - 16.0), (p.0 + 12.0, p.1 - 22.0)];
+            let cands = [
+                (p.0 + 2.0, p.1 - 14.0),
+                (p.0 + 8.0, p.1 - 16.0),
+                (p.0 - 6.0, p.1 - 16.0),
+                (p.0 + 12.0, p.1 - 22.0),
+            ];
             let letters = *self.rng.pick(&["PI", "PG", "TI", "PI"]).expect("non-empty");
             let number = self.next_loop();
             if let Some((c, _)) = self.bubble(Class::BubbleField, letters, number, &cands) {
-                self.thin_line(&[p, (p.0, c.1 + rad + 2.0), (c.0, c.1 + rad + 2.0), (c.0, c.1 + rad)], st.signal_line_mm);
+                self.thin_line(
+                    &[
+                        p,
+                        (p.0, c.1 + rad + 2.0),
+                        (c.0, c.1 + rad + 2.0),
+                        (c.0, c.1 + rad),
+                    ],
+                    st.signal_line_mm,
+                );
             }
         }
     }
@@ -766,8 +999,18 @@ impl Builder<'_> {
             let (xm, ym) = ((a.0 + bx) / 2.0, (a.1 + by) / 2.0);
             paths.push(vec![(a.0 + ar * sx, a.1), (bx, a.1), (bx, by - br * sy)]);
             paths.push(vec![(a.0, a.1 + ar * sy), (a.0, by), (bx - br * sx, by)]);
-            paths.push(vec![(a.0, a.1 + ar * sy), (a.0, ym), (bx, ym), (bx, by - br * sy)]);
-            paths.push(vec![(a.0 + ar * sx, a.1), (xm, a.1), (xm, by), (bx - br * sx, by)]);
+            paths.push(vec![
+                (a.0, a.1 + ar * sy),
+                (a.0, ym),
+                (bx, ym),
+                (bx, by - br * sy),
+            ]);
+            paths.push(vec![
+                (a.0 + ar * sx, a.1),
+                (xm, a.1),
+                (xm, by),
+                (bx - br * sx, by),
+            ]);
         }
         let syms: Vec<BBox> = self
             .symbols
@@ -804,7 +1047,11 @@ impl Builder<'_> {
         let runs = self.runs.clone();
         for (a, b) in runs {
             let horizontal = (a.1 - b.1).abs() < 1e-9;
-            let len = if horizontal { (b.0 - a.0).abs() } else { (b.1 - a.1).abs() };
+            let len = if horizontal {
+                (b.0 - a.0).abs()
+            } else {
+                (b.1 - a.1).abs()
+            };
             if len < 30.0 || !self.rng.chance(0.75) {
                 continue;
             }
@@ -814,11 +1061,22 @@ impl Builder<'_> {
             let mut cands = Vec::new();
             for off in [14.0, 17.0] {
                 for sgn in [side, -side] {
-                    cands.push(if horizontal { (p.0, p.1 + sgn * off) } else { (p.0 + sgn * off, p.1) });
+                    cands.push(if horizontal {
+                        (p.0, p.1 + sgn * off)
+                    } else {
+                        (p.0 + sgn * off, p.1)
+                    });
                 }
             }
-            let cls = if self.rng.chance(0.75) { Class::BubbleField } else { Class::BubbleBoard };
-            let first = *self.rng.pick(&['T', 'P', 'F', 'A', 'T', 'P']).expect("non-empty");
+            let cls = if self.rng.chance(0.75) {
+                Class::BubbleField
+            } else {
+                Class::BubbleBoard
+            };
+            let first = *self
+                .rng
+                .pick(&['T', 'P', 'F', 'A', 'T', 'P'])
+                .expect("non-empty");
             let fun = *self.rng.pick(&["I", "T", "I", "G"]).expect("non-empty");
             let fun = if fun == "G" && first != 'P' { "I" } else { fun };
             let letters = format!("{first}{fun}");
@@ -853,12 +1111,23 @@ impl Builder<'_> {
         let runs = self.runs.clone();
         for (a, b) in runs {
             let horizontal = (a.1 - b.1).abs() < 1e-9;
-            let len = if horizontal { (b.0 - a.0).abs() } else { (b.1 - a.1).abs() };
+            let len = if horizontal {
+                (b.0 - a.0).abs()
+            } else {
+                (b.1 - a.1).abs()
+            };
             if len < 55.0 || !self.rng.chance(0.8) {
                 continue;
             }
-            let size = self.rng.pick(&[50, 80, 100, 150, 200]).copied().expect("non-empty");
-            let service = *self.rng.pick(&["PW", "HC", "CW", "ST", "NG", "PL"]).expect("non-empty");
+            let size = self
+                .rng
+                .pick(&[50, 80, 100, 150, 200])
+                .copied()
+                .expect("non-empty");
+            let service = *self
+                .rng
+                .pick(&["PW", "HC", "CW", "ST", "NG", "PL"])
+                .expect("non-empty");
             let num = 1000 + self.rng.below(9000);
             let spec = *self.rng.pick(&["A1", "A2", "B1", "C3"]).expect("non-empty");
             let s = format!("{size}-{service}-{num}-{spec}");
@@ -889,7 +1158,10 @@ impl Builder<'_> {
                     let x = a.0 - st.process_line_mm / 2.0 - 1.6;
                     let bx = BBox::new(x - h - 0.5, y - tw - 0.5, h + 1.0, tw + 1.0);
                     if self.free(&bx, true) {
-                        let pl = Place { quarter_turns: 3, ..self.at((x, y)) };
+                        let pl = Place {
+                            quarter_turns: 3,
+                            ..self.at((x, y))
+                        };
                         let mut prims = Vec::new();
                         font::text(&pl, &s, 0.0, 0.0, h, Anchor::Left, &st, &mut prims);
                         let e = self.extent_mm(&prims);
@@ -906,7 +1178,11 @@ impl Builder<'_> {
         let runs = self.runs.clone();
         for (a, b) in runs {
             let horizontal = (a.1 - b.1).abs() < 1e-9;
-            let len = if horizontal { (b.0 - a.0).abs() } else { (b.1 - a.1).abs() };
+            let len = if horizontal {
+                (b.0 - a.0).abs()
+            } else {
+                (b.1 - a.1).abs()
+            };
             if len < 30.0 || !self.rng.chance(0.5) {
                 continue;
             }
@@ -924,8 +1200,10 @@ impl Builder<'_> {
         for _ in 0..n {
             let kind = self.rng.below(7);
             let c = (
-                self.rng.range_f64(self.area.x + 8.0, self.area.right() - 8.0),
-                self.rng.range_f64(self.area.y + 8.0, self.area.bottom() - 8.0),
+                self.rng
+                    .range_f64(self.area.x + 8.0, self.area.right() - 8.0),
+                self.rng
+                    .range_f64(self.area.y + 8.0, self.area.bottom() - 8.0),
             );
             let pl = self.at(c);
             let lw = st.outline_mm;
@@ -952,7 +1230,10 @@ impl Builder<'_> {
                     let ry = rx / self.rng.range_f64(1.3, 2.0);
                     pl.ellipse((0.0, 0.0), rx, ry, lw, &mut prims);
                     if self.rng.chance(0.6) {
-                        let word = *self.rng.pick(&["HOLD", "NO", "LO", "FO", "OPEN"]).expect("non-empty");
+                        let word = *self
+                            .rng
+                            .pick(&["HOLD", "NO", "LO", "FO", "OPEN"])
+                            .expect("non-empty");
                         let h = st.tag_text_mm;
                         font::text(&pl, word, 0.0, h / 2.0, h, Anchor::Centre, &st, &mut prims);
                     }
@@ -961,16 +1242,37 @@ impl Builder<'_> {
                     // Arc.
                     let rr = d * self.rng.range_f64(0.35, 0.7);
                     let a0 = self.rng.range_f64(0.0, TAU);
-                    prims.push(pl.arc((0.0, 0.0), rr, a0, a0 + self.rng.range_f64(0.6, 1.4) * PI, lw));
+                    prims.push(pl.arc(
+                        (0.0, 0.0),
+                        rr,
+                        a0,
+                        a0 + self.rng.range_f64(0.6, 1.4) * PI,
+                        lw,
+                    ));
                 }
                 4 => {
                     // Word with O's (notes on valves and lines).
-                    let word = *self.rng.pick(&["LO", "LC", "NO", "FC", "FO", "NNF", "SLOPE", "OO"]).expect("non-empty");
-                    font::text(&pl, word, 0.0, 0.0, st.text_mm, Anchor::Left, &st, &mut prims);
+                    let word = *self
+                        .rng
+                        .pick(&["LO", "LC", "NO", "FC", "FO", "NNF", "SLOPE", "OO"])
+                        .expect("non-empty");
+                    font::text(
+                        &pl,
+                        word,
+                        0.0,
+                        0.0,
+                        st.text_mm,
+                        Anchor::Left,
+                        &st,
+                        &mut prims,
+                    );
                 }
                 5 => {
                     // Letter O alone, large.
-                    let h = *self.rng.pick(&[st.text_mm, st.title_text_mm]).expect("non-empty");
+                    let h = *self
+                        .rng
+                        .pick(&[st.text_mm, st.title_text_mm])
+                        .expect("non-empty");
                     font::text(&pl, "O", 0.0, 0.0, h, Anchor::Left, &st, &mut prims);
                 }
                 _ => {
@@ -994,7 +1296,12 @@ impl Builder<'_> {
         let boxes: Vec<BBox> = self
             .symbols
             .iter()
-            .filter(|s| matches!(s.class, Class::BubbleField | Class::BubbleShared | Class::BubbleBoard))
+            .filter(|s| {
+                matches!(
+                    s.class,
+                    Class::BubbleField | Class::BubbleShared | Class::BubbleBoard
+                )
+            })
             .map(|s| s.bbox.scaled(1.0 / self.s))
             .collect();
         for b in boxes {
@@ -1003,12 +1310,21 @@ impl Builder<'_> {
             }
             let gap = self.rng.range_f64(1.0, 2.0);
             let y = b.bottom() + gap;
-            let (x0, x1) = (b.x - self.rng.range_f64(4.0, 10.0), b.right() + self.rng.range_f64(4.0, 10.0));
+            let (x0, x1) = (
+                b.x - self.rng.range_f64(4.0, 10.0),
+                b.right() + self.rng.range_f64(4.0, 10.0),
+            );
             let xc = b.x + b.w * self.rng.range_f64(0.6, 1.3);
             let horiz = seg_box((x0, y), (x1, y), st.thin_mm);
             let vert = seg_box((xc, y - gap + 0.4), (xc, y + 10.0), st.thin_mm);
-            let others: Vec<BBox> = self.objects.iter().filter(|o| !o.contains_box(&b)).copied().collect();
-            let clear = |bx: &BBox| !others.iter().any(|o| overlaps(o, bx)) && self.area.contains_box(bx);
+            let others: Vec<BBox> = self
+                .objects
+                .iter()
+                .filter(|o| !o.contains_box(&b))
+                .copied()
+                .collect();
+            let clear =
+                |bx: &BBox| !others.iter().any(|o| overlaps(o, bx)) && self.area.contains_box(bx);
             let syms_clear = |bx: &BBox| {
                 !self
                     .symbols
@@ -1018,7 +1334,10 @@ impl Builder<'_> {
             if clear(&horiz) && clear(&vert) && syms_clear(&horiz) && syms_clear(&vert) {
                 let mut prims = Vec::new();
                 prims.push(self.g().seg((x0, y), (x1, y), st.thin_mm));
-                prims.push(self.g().seg((xc, y - gap + 0.4), (xc, y + 10.0), st.thin_mm));
+                prims.push(
+                    self.g()
+                        .seg((xc, y - gap + 0.4), (xc, y + 10.0), st.thin_mm),
+                );
                 self.push(prims);
                 self.objects.push(horiz);
                 self.objects.push(vert);
@@ -1036,7 +1355,10 @@ impl Builder<'_> {
             "2. NO POCKETS ON LINES TO PUMPS",
             "3. CONTROL VALVE SIZES TO VENDOR DATA",
         ];
-        let w = lines.iter().map(|l| font::text_width_mm(l, h, &st)).fold(0.0, f64::max);
+        let w = lines
+            .iter()
+            .map(|l| font::text_width_mm(l, h, &st))
+            .fold(0.0, f64::max);
         let tall = lines.len() as f64 * h * 1.7;
         let x = frame.x + 6.0;
         let y = title.y + 4.0;
@@ -1044,7 +1366,16 @@ impl Builder<'_> {
         if bx.right() < title.x - 4.0 && bx.bottom() < frame.bottom() - 2.0 {
             for (k, l) in lines.iter().enumerate() {
                 let mut prims = Vec::new();
-                font::text(&self.g(), l, x, y + h + k as f64 * h * 1.7, h, Anchor::Left, &st, &mut prims);
+                font::text(
+                    &self.g(),
+                    l,
+                    x,
+                    y + h + k as f64 * h * 1.7,
+                    h,
+                    Anchor::Left,
+                    &st,
+                    &mut prims,
+                );
                 self.push(prims);
             }
         }

@@ -58,25 +58,39 @@ impl SynthConfig {
         let d = &self.degradation;
         let bad = |message: String| Err(LabelError::SynthSettings { message });
         if !(self.dpi.is_finite() && (50.0..=1200.0).contains(&self.dpi)) {
-            return bad(format!("dpi {} is outside 50-1200; use e.g. --dpi 200", self.dpi));
+            return bad(format!(
+                "dpi {} is outside 50-1200; use e.g. --dpi 200",
+                self.dpi
+            ));
         }
         for (name, v) in [("alpha0", d.alpha0), ("beta0", d.beta0), ("eta", d.eta)] {
             if !(0.0..=1.0).contains(&v) {
-                return bad(format!("degradation {name} = {v} is not a probability in [0, 1]"));
+                return bad(format!(
+                    "degradation {name} = {v} is not a probability in [0, 1]"
+                ));
             }
         }
         for (name, v) in [("alpha", d.alpha), ("beta", d.beta)] {
             if !(v.is_finite() && v > 0.0) {
-                return bad(format!("degradation {name} = {v} must be a positive decay constant"));
+                return bad(format!(
+                    "degradation {name} = {v} must be a positive decay constant"
+                ));
             }
         }
-        if !(0.0..=10.0).contains(&d.max_skew_deg) || !(0.0..=5.0).contains(&d.blur_sigma) || d.closing > 9 {
+        if !(0.0..=10.0).contains(&d.max_skew_deg)
+            || !(0.0..=5.0).contains(&d.blur_sigma)
+            || d.closing > 9
+        {
             return bad(format!(
                 "degradation skew {} deg (0-10), blur {} px (0-5) or closing {} (0-9) out of range",
                 d.max_skew_deg, d.blur_sigma, d.closing
             ));
         }
-        for (name, v) in [("paper_level", d.paper_level), ("ink_level", d.ink_level), ("noise_sd", d.noise_sd)] {
+        for (name, v) in [
+            ("paper_level", d.paper_level),
+            ("ink_level", d.ink_level),
+            ("noise_sd", d.noise_sd),
+        ] {
             if !(0.0..=255.0).contains(&v) {
                 return bad(format!("degradation {name} = {v} is outside 0-255"));
             }
@@ -169,8 +183,17 @@ pub fn generate_sheet(config: &SynthConfig, index: usize, paper: Paper) -> Synth
     let (drawing, mut rng, id) = compose(config, index, paper);
     let mask = render(&drawing, false);
     let (image, theta) = degrade::degrade(&mask, &config.degradation, config.dpi, &mut rng);
-    let c = (f64::from(drawing.width) / 2.0, f64::from(drawing.height) / 2.0);
-    let moved = |b: &BBox| if theta == 0.0 { *b } else { degrade::rotate_box(b, theta, c) };
+    let c = (
+        f64::from(drawing.width) / 2.0,
+        f64::from(drawing.height) / 2.0,
+    );
+    let moved = |b: &BBox| {
+        if theta == 0.0 {
+            *b
+        } else {
+            degrade::rotate_box(b, theta, c)
+        }
+    };
     SynthSheet {
         id,
         paper,
@@ -187,7 +210,10 @@ pub fn generate_sheet(config: &SynthConfig, index: usize, paper: Paper) -> Synth
         ignore: drawing
             .ignore
             .iter()
-            .map(|(b, r)| IgnoreArea { bbox: moved(b), reason: r.clone() })
+            .map(|(b, r)| IgnoreArea {
+                bbox: moved(b),
+                reason: r.clone(),
+            })
             .collect(),
         skew_deg: theta.to_degrees(),
     }

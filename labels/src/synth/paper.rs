@@ -30,7 +30,10 @@ impl Paper {
     /// Width and height in pixels at `dpi`, rounded to the nearest pixel.
     pub fn size_px(self, dpi: f64) -> (u32, u32) {
         let (w, h) = self.size_mm();
-        (mm_to_px(w, dpi).round() as u32, mm_to_px(h, dpi).round() as u32)
+        (
+            mm_to_px(w, dpi).round() as u32,
+            mm_to_px(h, dpi).round() as u32,
+        )
     }
 
     /// Lower-case name, e.g. `"a3"`.

@@ -73,7 +73,12 @@ impl Prim {
                 }
                 let (xmin, xmax) = min_max(&xs);
                 let (ymin, ymax) = min_max(&ys);
-                BBox::new(xmin - r, ymin - r, xmax - xmin + 2.0 * r, ymax - ymin + 2.0 * r)
+                BBox::new(
+                    xmin - r,
+                    ymin - r,
+                    xmax - xmin + 2.0 * r,
+                    ymax - ymin + 2.0 * r,
+                )
             }
             Prim::Disc { c, rad } => BBox::new(c.0 - rad, c.1 - rad, 2.0 * rad, 2.0 * rad),
             Prim::Erase(b) => b,
@@ -118,12 +123,19 @@ pub(crate) fn union_extent(prims: &[Prim]) -> Option<BBox> {
 pub(crate) fn union(a: &BBox, b: &BBox) -> BBox {
     let x0 = a.x.min(b.x);
     let y0 = a.y.min(b.y);
-    BBox::new(x0, y0, a.right().max(b.right()) - x0, a.bottom().max(b.bottom()) - y0)
+    BBox::new(
+        x0,
+        y0,
+        a.right().max(b.right()) - x0,
+        a.bottom().max(b.bottom()) - y0,
+    )
 }
 
 fn min_max(v: &[f64]) -> (f64, f64) {
     v.iter()
-        .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &x| (lo.min(x), hi.max(x)))
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &x| {
+            (lo.min(x), hi.max(x))
+        })
 }
 
 /// True when angle `t` (any branch) lies in `[a0, a1]`.
@@ -269,12 +281,19 @@ impl Place {
         for _ in 0..self.quarter_turns % 4 {
             (x, y) = (-y, x);
         }
-        (self.origin.0 + x * self.scale, self.origin.1 + y * self.scale)
+        (
+            self.origin.0 + x * self.scale,
+            self.origin.1 + y * self.scale,
+        )
     }
 
     /// Maps a local angle range to pixel-space angles.
     fn angles(&self, a0: f64, a1: f64) -> (f64, f64) {
-        let (mut b0, mut b1) = if self.mirror { (PI - a1, PI - a0) } else { (a0, a1) };
+        let (mut b0, mut b1) = if self.mirror {
+            (PI - a1, PI - a0)
+        } else {
+            (a0, a1)
+        };
         let turn = f64::from(self.quarter_turns % 4) * FRAC_PI_2;
         b0 += turn;
         b1 += turn;
@@ -330,7 +349,15 @@ impl Place {
     }
 
     /// A rectangle outline centred on `c`, `w x h` mm, with corner radius `rc`.
-    pub(crate) fn rect(&self, c: (f64, f64), w: f64, h: f64, rc: f64, lw: f64, out: &mut Vec<Prim>) {
+    pub(crate) fn rect(
+        &self,
+        c: (f64, f64),
+        w: f64,
+        h: f64,
+        rc: f64,
+        lw: f64,
+        out: &mut Vec<Prim>,
+    ) {
         let (hx, hy) = (w / 2.0, h / 2.0);
         let rc = rc.min(hx).min(hy).max(0.0);
         let (x0, x1, y0, y1) = (c.0 - hx, c.0 + hx, c.1 - hy, c.1 + hy);
@@ -368,7 +395,7 @@ mod tests {
     /// densely sampled curve (a worst-case sampling error far below a pixel).
     fn naive_arc_ink(c: Pt, rad: f64, a0: f64, a1: f64, r: f64, w: u32, h: u32) -> Mask {
         let mut m = Mask::new(w, h);
-        let n = 4000;
+        let n = 1500;
         let pts: Vec<Pt> = (0..=n)
             .map(|k| {
                 let t = a0 + (a1 - a0) * k as f64 / n as f64;
@@ -389,18 +416,31 @@ mod tests {
     #[test]
     fn circle_extent_is_radius_plus_half_width() {
         // Hand calculation: a circle of radius 10 drawn 2 wide spans 22 x 22.
-        let p = Prim::Arc { c: (20.0, 20.0), rad: 10.0, a0: 0.0, a1: TAU, r: 1.0 };
+        let p = Prim::Arc {
+            c: (20.0, 20.0),
+            rad: 10.0,
+            a0: 0.0,
+            a1: TAU,
+            r: 1.0,
+        };
         assert_eq!(p.extent(), BBox::new(9.0, 9.0, 22.0, 22.0));
     }
 
     #[test]
     fn place_quarter_turn_maps_right_to_down() {
-        let pl = Place { origin: (0.0, 0.0), scale: 1.0, quarter_turns: 1, mirror: false };
+        let pl = Place {
+            origin: (0.0, 0.0),
+            scale: 1.0,
+            quarter_turns: 1,
+            mirror: false,
+        };
         let (x, y) = pl.pt(1.0, 0.0);
         assert!(x.abs() < 1e-12 && (y - 1.0).abs() < 1e-12);
     }
 
     proptest! {
+        #![proptest_config(ProptestConfig::with_cases(64))]
+
         #[test]
         fn arc_raster_matches_naive_twin(
             a0 in -3.0..3.0f64, span in 0.3..6.0f64, rad in 3.0..12.0f64, r in 0.6..2.5f64

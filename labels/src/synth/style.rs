@@ -222,6 +222,9 @@ mod tests {
         assert_ne!(a.process_line_mm, b.process_line_mm);
         assert_ne!(a.shared_corner_mm > 0.0, b.shared_corner_mm > 0.0);
         assert_ne!(a.slant_deg, b.slant_deg);
-        assert_ne!(a.valve_height_mm / a.valve_length_mm, b.valve_height_mm / b.valve_length_mm);
+        assert_ne!(
+            a.valve_height_mm / a.valve_length_mm,
+            b.valve_height_mm / b.valve_length_mm
+        );
     }
 }

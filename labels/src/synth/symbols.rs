@@ -103,7 +103,13 @@ pub fn classes(style: DraftingStyle) -> Vec<ClassSpec> {
 }
 
 /// An instrument bubble with its tag (letters over loop number).
-pub(crate) fn bubble(pl: &Place, class: Class, st: &Style, tag: Option<(&str, &str)>, out: &mut Vec<Prim>) {
+pub(crate) fn bubble(
+    pl: &Place,
+    class: Class,
+    st: &Style,
+    tag: Option<(&str, &str)>,
+    out: &mut Vec<Prim>,
+) {
     let r = st.bubble_diameter_mm / 2.0;
     out.push(pl.circle((0.0, 0.0), r, st.outline_mm));
     match class {
@@ -129,7 +135,11 @@ pub(crate) fn bubble(pl: &Place, class: Class, st: &Style, tag: Option<(&str, &s
 /// The bow-tie body of a valve along the local u axis.
 pub(crate) fn bow_tie(pl: &Place, st: &Style, out: &mut Vec<Prim>) {
     let (hl, hh) = (st.valve_length_mm / 2.0, st.valve_height_mm / 2.0);
-    pl.polygon(&[(-hl, -hh), (hl, hh), (hl, -hh), (-hl, hh)], st.outline_mm, out);
+    pl.polygon(
+        &[(-hl, -hh), (hl, hh), (hl, -hh), (-hl, hh)],
+        st.outline_mm,
+        out,
+    );
 }
 
 /// A control valve: bow-tie body, stem and diaphragm dome (towards local -v).
@@ -168,7 +178,12 @@ pub(crate) fn pump(pl: &Place, st: &Style, out: &mut Vec<Prim>) {
     if st.pump_base {
         let yb = r + 0.9;
         pl.polyline(
-            &[(-0.6 * r, 0.8 * r), (-0.9 * r, yb), (0.9 * r, yb), (0.6 * r, 0.8 * r)],
+            &[
+                (-0.6 * r, 0.8 * r),
+                (-0.9 * r, yb),
+                (0.9 * r, yb),
+                (0.6 * r, 0.8 * r),
+            ],
             lw,
             out,
         );
@@ -176,9 +191,17 @@ pub(crate) fn pump(pl: &Place, st: &Style, out: &mut Vec<Prim>) {
 }
 
 /// Draws a labelled symbol of `class` at `pl`.
-pub(crate) fn draw_class(pl: &Place, class: Class, st: &Style, tag: Option<(&str, &str)>, out: &mut Vec<Prim>) {
+pub(crate) fn draw_class(
+    pl: &Place,
+    class: Class,
+    st: &Style,
+    tag: Option<(&str, &str)>,
+    out: &mut Vec<Prim>,
+) {
     match class {
-        Class::BubbleField | Class::BubbleShared | Class::BubbleBoard => bubble(pl, class, st, tag, out),
+        Class::BubbleField | Class::BubbleShared | Class::BubbleBoard => {
+            bubble(pl, class, st, tag, out)
+        }
         Class::ControlValve => control_valve(pl, st, out),
         Class::Pump => pump(pl, st, out),
     }
@@ -198,11 +221,22 @@ pub(crate) fn ball_valve(pl: &Place, st: &Style, out: &mut Vec<Prim>) {
 /// A concentric reducer along local u.
 pub(crate) fn reducer(pl: &Place, st: &Style, out: &mut Vec<Prim>) {
     let (l, a, b) = (4.5, st.valve_height_mm * 0.45, st.valve_height_mm * 0.25);
-    pl.polygon(&[(-l / 2.0, -a), (l / 2.0, -b), (l / 2.0, b), (-l / 2.0, a)], st.outline_mm, out);
+    pl.polygon(
+        &[(-l / 2.0, -a), (l / 2.0, -b), (l / 2.0, b), (-l / 2.0, a)],
+        st.outline_mm,
+        out,
+    );
 }
 
 /// A vertical vessel with 2:1 elliptical heads; local (0,0) is the body centre.
-pub(crate) fn vertical_vessel(pl: &Place, st: &Style, w: f64, h: f64, trays: bool, out: &mut Vec<Prim>) {
+pub(crate) fn vertical_vessel(
+    pl: &Place,
+    st: &Style,
+    w: f64,
+    h: f64,
+    trays: bool,
+    out: &mut Vec<Prim>,
+) {
     let lw = st.equipment_mm;
     let (hw, hh, head) = (w / 2.0, h / 2.0, w / 4.0);
     out.push(pl.seg((-hw, -hh), (-hw, hh), lw));
@@ -213,14 +247,26 @@ pub(crate) fn vertical_vessel(pl: &Place, st: &Style, w: f64, h: f64, trays: boo
         let n = (h / 7.0).floor() as usize;
         for k in 1..n {
             let y = -hh + h * k as f64 / n as f64;
-            let (x0, x1) = if k % 2 == 0 { (-hw, hw * 0.45) } else { (-hw * 0.45, hw) };
+            let (x0, x1) = if k % 2 == 0 {
+                (-hw, hw * 0.45)
+            } else {
+                (-hw * 0.45, hw)
+            };
             out.push(pl.seg((x0, y), (x1, y), st.thin_mm));
         }
     }
 }
 
 /// Half an ellipse above (`up`) or below a centre line, as chords.
-fn half_ellipse(pl: &Place, c: (f64, f64), rx: f64, ry: f64, up: bool, lw: f64, out: &mut Vec<Prim>) {
+fn half_ellipse(
+    pl: &Place,
+    c: (f64, f64),
+    rx: f64,
+    ry: f64,
+    up: bool,
+    lw: f64,
+    out: &mut Vec<Prim>,
+) {
     let n = 20;
     let pts: Vec<(f64, f64)> = (0..=n)
         .map(|k| {
@@ -238,12 +284,24 @@ pub(crate) fn horizontal_drum(pl: &Place, st: &Style, w: f64, h: f64, out: &mut 
     let (hw, hh) = (w / 2.0, h / 2.0);
     out.push(pl.seg((-hw, -hh), (hw, -hh), lw));
     out.push(pl.seg((-hw, hh), (hw, hh), lw));
-    let q = Place { quarter_turns: 1, ..*pl };
+    let q = Place {
+        quarter_turns: 1,
+        ..*pl
+    };
     // Heads drawn in a turned frame: local (u, v) of q is (-v, u) of pl.
     half_ellipse(&q, (0.0, hw), hh, hh / 2.0, false, lw, out);
     half_ellipse(&q, (0.0, -hw), hh, hh / 2.0, true, lw, out);
     for sx in [-0.3 * w, 0.3 * w] {
-        pl.polyline(&[(sx - 2.0, hh), (sx - 3.0, hh + 4.0), (sx + 3.0, hh + 4.0), (sx + 2.0, hh)], st.thin_mm, out);
+        pl.polyline(
+            &[
+                (sx - 2.0, hh),
+                (sx - 3.0, hh + 4.0),
+                (sx + 3.0, hh + 4.0),
+                (sx + 2.0, hh),
+            ],
+            st.thin_mm,
+            out,
+        );
     }
 }
 
@@ -256,8 +314,16 @@ pub(crate) fn exchanger(pl: &Place, st: &Style, w: f64, h: f64, out: &mut Vec<Pr
     out.push(pl.seg((-hw, -hh), (-hw, hh), lw));
     out.push(pl.arc((hw - hh, 0.0), hh, -PI / 2.0, PI / 2.0, lw));
     out.push(pl.seg((-hw + 6.0, -hh), (-hw + 6.0, hh), lw));
-    pl.polyline(&[(-hw + 6.0, -hh * 0.4), (hw - hh, -hh * 0.4)], st.thin_mm, out);
-    pl.polyline(&[(-hw + 6.0, hh * 0.4), (hw - hh, hh * 0.4)], st.thin_mm, out);
+    pl.polyline(
+        &[(-hw + 6.0, -hh * 0.4), (hw - hh, -hh * 0.4)],
+        st.thin_mm,
+        out,
+    );
+    pl.polyline(
+        &[(-hw + 6.0, hh * 0.4), (hw - hh, hh * 0.4)],
+        st.thin_mm,
+        out,
+    );
 }
 
 /// A flat-bottomed tank with a cone roof; (0,0) is the body centre.
@@ -271,7 +337,11 @@ pub(crate) fn tank(pl: &Place, st: &Style, w: f64, h: f64, out: &mut Vec<Prim>) 
 /// An off-sheet connector arrow pointing along +u, `len` mm long.
 pub(crate) fn off_sheet(pl: &Place, st: &Style, len: f64, out: &mut Vec<Prim>) {
     let h = 3.0;
-    pl.polygon(&[(0.0, -h), (len - h, -h), (len, 0.0), (len - h, h), (0.0, h)], st.outline_mm, out);
+    pl.polygon(
+        &[(0.0, -h), (len - h, -h), (len, 0.0), (len - h, h), (0.0, h)],
+        st.outline_mm,
+        out,
+    );
 }
 
 #[cfg(test)]
@@ -290,11 +360,21 @@ mod tests {
             for class in Class::ALL {
                 for turns in 0..4u8 {
                     for mirror in [false, true] {
-                        let pl = Place { origin: (500.0, 500.0), scale: s, quarter_turns: turns, mirror };
+                        let pl = Place {
+                            origin: (500.0, 500.0),
+                            scale: s,
+                            quarter_turns: turns,
+                            mirror,
+                        };
                         let mut prims = Vec::new();
                         draw_class(&pl, class, &st, Some(("FIC", "101")), &mut prims);
                         let e = union_extent(&prims).unwrap();
-                        assert!(e.w <= 100.0 && e.h <= 100.0, "{style:?} {class:?}: {} x {} px", e.w, e.h);
+                        assert!(
+                            e.w <= 100.0 && e.h <= 100.0,
+                            "{style:?} {class:?}: {} x {} px",
+                            e.w,
+                            e.h
+                        );
                     }
                 }
             }
@@ -309,7 +389,13 @@ mod tests {
             let st = style.spec();
             let pl = Place::at((300.0, 300.0), s);
             let mut prims = Vec::new();
-            bubble(&pl, Class::BubbleField, &st, Some(("PI", "104")), &mut prims);
+            bubble(
+                &pl,
+                Class::BubbleField,
+                &st,
+                Some(("PI", "104")),
+                &mut prims,
+            );
             let e = union_extent(&prims).unwrap();
             let want = (st.bubble_diameter_mm + st.outline_mm) * s;
             assert!((e.w - want).abs() < 1e-9 && (e.h - want).abs() < 1e-9);
@@ -318,8 +404,20 @@ mod tests {
 
     #[test]
     fn classes_are_five_snake_case_names_in_fixed_order() {
-        let names: Vec<String> = classes(DraftingStyle::A).into_iter().map(|c| c.name).collect();
-        assert_eq!(names, ["bubble_field", "bubble_shared", "bubble_board", "control_valve", "pump"]);
+        let names: Vec<String> = classes(DraftingStyle::A)
+            .into_iter()
+            .map(|c| c.name)
+            .collect();
+        assert_eq!(
+            names,
+            [
+                "bubble_field",
+                "bubble_shared",
+                "bubble_board",
+                "control_valve",
+                "pump"
+            ]
+        );
         let b = classes(DraftingStyle::B);
         assert!(b[0].nominal_mm < classes(DraftingStyle::A)[0].nominal_mm);
     }
