@@ -276,3 +276,14 @@ fn every_command_has_help_with_an_example() {
     let bad = symtrust(tmp.path(), &["crops", "bake"]).expect_code(2);
     assert!(bad.stderr.contains("bake"));
 }
+
+#[test]
+fn demo_runs_the_job_on_the_synthetic_plant() {
+    let tmp = tempfile::tempdir().unwrap();
+    let run = symtrust(tmp.path(), &["demo", "--out", "d", "--sheets", "2", "--json"]).expect_code(0);
+    let v = run.json();
+    assert_eq!(v["held_out"], serde_json::json!(["fp-a-0001"]));
+    let id = v["crop_library"].as_str().unwrap();
+    assert!(tmp.path().join("d/crops").join(id).join("manifest.json").is_file());
+    assert!(v["counts"]["positive"].as_u64().unwrap() > 10);
+}

@@ -202,8 +202,8 @@ pub fn mcnemar(champion_right: &[bool], challenger_right: &[bool], exact_below: 
         let p = if n == 0 { 1.0 } else { (2.0 * binomial_half_cdf(b.min(c), n)).min(1.0) };
         (McNemarMethod::ExactBinomial, None, p)
     } else {
-        // The formula as published, unclamped: b = c gives 1 / (b + c), not 0
-        // (the same as scipy-based and statsmodels' corrected statistic).
+        // The textbook statistic, unclamped: b = c gives 1 / (b + c), not 0
+        // (statsmodels' corrected McNemar computes it the same way, from memory).
         let x = ((b as f64 - c as f64).abs() - 1.0).powi(2) / n as f64;
         (McNemarMethod::ChiSquareCorrected, Some(x), chi2_sf_1dof(x))
     };

@@ -531,6 +531,25 @@ pub fn evaluate_sheets(sheets: &[SheetInput], class_names: &[String], cfg: &Shee
     })
 }
 
+/// Micro precision, micro recall, false alarms per sheet and misses per sheet
+/// of sheets `idx` (repeats count again) at threshold `t`.
+fn operating_stats(outcomes: &[SheetOutcomes], idx: &[usize], t: f64) -> [Option<f64>; 4] {
+    let (mut kept, mut tp, mut truths) = (0, 0, 0);
+    for &i in idx {
+        let (k, p, _, g) = counts_at(&outcomes[i], t);
+        kept += k;
+        tp += p;
+        truths += g;
+    }
+    let sheets = idx.len() as f64;
+    [
+        ratio(tp, kept),
+        ratio(tp, truths),
+        Some((kept - tp) as f64 / sheets),
+        Some((truths - tp) as f64 / sheets),
+    ]
+}
+
 #[allow(clippy::too_many_arguments)]
 fn sheet_intervals(
     outcomes: &[SheetOutcomes],
@@ -557,31 +576,13 @@ fn sheet_intervals(
         }
         r_micro.push(ApFigures::of(&pooled_curve(outcomes, idx, None)).all_point);
         if let Some(t) = threshold {
-            let (mut kept, mut tp, mut truths) = (0, 0, 0);
-            for &i in idx {
-                let (k, p, _, g) = counts_at(&outcomes[i], t);
-                kept += k;
-                tp += p;
-                truths += g;
+            for (j, v) in operating_stats(outcomes, idx, t).into_iter().enumerate() {
+                r_op[j].push(v);
             }
-            let sheets = idx.len() as f64;
-            r_op[0].push(ratio(tp, kept));
-            r_op[1].push(ratio(tp, truths));
-            r_op[2].push(Some((kept - tp) as f64 / sheets));
-            r_op[3].push(Some((truths - tp) as f64 / sheets));
         }
     }
-    let op_estimate = threshold.map(|t| {
-        let (mut kept, mut tp, mut truths) = (0, 0, 0);
-        for o in outcomes {
-            let (k, p, _, g) = counts_at(o, t);
-            kept += k;
-            tp += p;
-            truths += g;
-        }
-        let sheets = outcomes.len() as f64;
-        [ratio(tp, kept), ratio(tp, truths), Some((kept - tp) as f64 / sheets), Some((truths - tp) as f64 / sheets)]
-    });
+    let all: Vec<usize> = (0..outcomes.len()).collect();
+    let op_estimate = threshold.map(|t| operating_stats(outcomes, &all, t));
     let op = |j: usize| -> Result<Option<Interval>> {
         match op_estimate {
             Some(e) => Ok(Some(interval_from(e[j], &r_op[j], b.level)?)),
@@ -603,4 +604,170 @@ fn sheet_intervals(
         false_alarms_per_sheet: op(2)?,
         misses_per_sheet: op(3)?,
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn det(sheet: &str, class: &str, score: f64, x: f64, y: f64) -> Detection {
+        Detection { sheet: sheet.into(), class: class.into(), score, x, y, w: 10.0, h: 10.0 }
+    }
+
+    fn truth(class: &str, x: f64, y: f64) -> TruthSymbol {
+        TruthSymbol { class: class.into(), bbox: BBox::new(x, y, 10.0, 10.0) }
+    }
+
+    fn names() -> Vec<String> {
+        vec!["valve".into(), "pump".into()]
+    }
+
+    /// Two sheets worked by hand (numbers in the comments below).
+    fn sheets() -> Vec<SheetInput> {
+        vec![
+            SheetInput {
+                sheet: "a".into(),
+                truths: vec![truth("valve", 0.0, 0.0), truth("valve", 100.0, 0.0), truth("pump", 200.0, 0.0), truth("valve", 520.0, 520.0)],
+                detections: vec![
+                    det("a", "valve", 0.9, 0.0, 0.0),    // finds valve 1
+                    det("a", "valve", 0.8, 1.0, 0.0),    // duplicate of valve 1
+                    det("a", "pump", 0.7, 200.0, 0.0),   // finds the pump
+                    det("a", "valve", 0.6, 300.0, 0.0),  // background
+                    det("a", "valve", 0.95, 530.0, 530.0), // inside the ignore region
+                ],
+                ignore: vec![BBox::new(500.0, 500.0, 100.0, 100.0)],
+            },
+            SheetInput {
+                sheet: "b".into(),
+                truths: vec![truth("pump", 0.0, 0.0)],
+                detections: vec![det("b", "pump", 0.85, 0.0, 0.0), det("b", "valve", 0.5, 0.0, 0.0)],
+                ignore: vec![],
+            },
+        ]
+    }
+
+    #[test]
+    fn worked_example() {
+        let cfg = SheetEvalConfig { bootstrap: None, ..SheetEvalConfig::default() };
+        let e = evaluate_sheets(&sheets(), &names(), &cfg).unwrap();
+        // Valve: 2 symbols (one ignored), ranked T F F F -> P/R (1, .5), (.5, .5),
+        // (1/3, .5), (.25, .5): all-point AP 0.5, 101-point 51/101 (levels 0..0.50).
+        let v = &e.per_class[0].figures;
+        assert_eq!((v.n_truths, v.n_detections), (2, 4));
+        assert_eq!(v.ap.all_point, Some(0.5));
+        assert!((v.ap.points_101.unwrap() - 51.0 / 101.0).abs() < 1e-12);
+        // Pump: 2 symbols, both found first: AP 1.
+        assert_eq!(e.per_class[1].figures.ap.all_point, Some(1.0));
+        assert_eq!(e.map_all_point, Some(0.75));
+        // Micro: 4 symbols, ranked .9T .85T .8F .7T .6F .5F; envelope 1 to recall
+        // .5, then .75 to recall .75: AP = .5 + .25 * .75 = 0.6875.
+        assert_eq!(e.micro.ap.all_point, Some(0.6875));
+        // F1 at 0.7 is .75 (P = R = .75), the best.
+        let op = e.operating.unwrap();
+        assert_eq!((op.threshold, op.precision, op.recall), (0.7, 0.75, 0.75));
+        // Per sheet at 0.7.
+        let rows = e.per_sheet.as_ref().unwrap();
+        let a = &rows[0];
+        assert_eq!((a.n_truths, a.n_kept, a.true_positives, a.false_alarms, a.duplicates, a.misses), (3, 3, 2, 1, 1, 1));
+        assert_eq!((a.ignored_truths, a.ignored_detections), (1, 1));
+        let b = &rows[1];
+        assert_eq!((b.n_truths, b.n_kept, b.true_positives, b.false_alarms, b.misses), (1, 1, 1, 0, 0));
+        // Detection confusion at 0.7: rows valve, pump, none; columns valve, pump, missed.
+        let t = e.detection_confusion.as_ref().unwrap();
+        assert_eq!(t.counts, vec![vec![1, 0, 1], vec![0, 2, 0], vec![1, 0, 0]]);
+        // Precision at recall >= 0.9 is never reached; recall at precision >= 0.9 is 0.5 at 0.85.
+        assert_eq!(e.micro.precision_at_recall, None);
+        assert_eq!(e.micro.recall_at_precision.unwrap().threshold, 0.85);
+        // The sweep's IoU 0.5 row repeats the main figures (same criterion).
+        let half = e.iou_sweep.iter().find(|r| r.min_iou == 0.5).unwrap();
+        assert_eq!(half.map_all_point, e.map_all_point);
+        assert_eq!(e.iou_sweep.len(), 9);
+        // Scores as P(true positive): 6 scored detections, 3 true.
+        assert_eq!(e.calibration.as_ref().unwrap().n, 6);
+    }
+
+    #[test]
+    fn sheet_order_does_not_matter() {
+        let cfg = SheetEvalConfig { bootstrap: None, ..SheetEvalConfig::default() };
+        let a = evaluate_sheets(&sheets(), &names(), &cfg).unwrap();
+        let mut rev = sheets();
+        rev.reverse();
+        let b = evaluate_sheets(&rev, &names(), &cfg).unwrap();
+        assert_eq!(a.per_class, b.per_class);
+        assert_eq!(a.micro, b.micro);
+        assert_eq!(a.iou_sweep, b.iou_sweep);
+        assert_eq!(a.detection_confusion, b.detection_confusion);
+    }
+
+    #[test]
+    fn unmet_operating_rule_leaves_tables_out() {
+        let cfg = SheetEvalConfig { bootstrap: None, operating: OperatingRule::TargetRecall { recall: 1.0 }, ..SheetEvalConfig::default() };
+        let e = evaluate_sheets(&sheets(), &names(), &cfg).unwrap();
+        assert!(e.operating.is_none() && e.per_sheet.is_none() && e.detection_confusion.is_none());
+        let cfg = SheetEvalConfig { bootstrap: None, operating: OperatingRule::Fixed { threshold: 0.0 }, ..SheetEvalConfig::default() };
+        let e = evaluate_sheets(&sheets(), &names(), &cfg).unwrap();
+        let op = e.operating.unwrap();
+        assert_eq!((op.precision, op.recall), (0.5, 0.75));
+    }
+
+    #[test]
+    fn a_sheet_drawn_twice_counts_twice() {
+        let prepared = prepare_sheets(&sheets(), &names()).unwrap();
+        let o: Vec<SheetOutcomes> = prepared.iter().map(|p| sheet_outcomes(p, 2, &MatchCriterion::default())).collect();
+        let once = pooled_curve(&o, &[0], None);
+        let twice = pooled_curve(&o, &[0, 0], None);
+        assert_eq!(twice.n_positives, 2 * once.n_positives);
+        assert_eq!(twice.points.len(), once.points.len());
+        for (p, q) in once.points.iter().zip(&twice.points) {
+            assert_eq!((2 * p.tp, 2 * p.fp, p.precision, p.recall), (q.tp, q.fp, q.precision, q.recall));
+        }
+        // A multiset of different sheets is not the same as one of them doubled.
+        assert_ne!(pooled_curve(&o, &[0, 1], None), twice);
+    }
+
+    #[test]
+    fn intervals_are_seeded_and_well_formed() {
+        let cfg = SheetEvalConfig { bootstrap: Some(BootstrapConfig { resamples: 300, seed: 5, level: 0.9 }), ..SheetEvalConfig::default() };
+        let e = evaluate_sheets(&sheets(), &names(), &cfg).unwrap();
+        let again = evaluate_sheets(&sheets(), &names(), &cfg).unwrap();
+        assert_eq!(e.intervals, again.intervals);
+        let iv = e.intervals.unwrap();
+        for i in [iv.map_all_point, iv.micro_ap_all_point, iv.precision_at_operating.unwrap(), iv.misses_per_sheet.unwrap()] {
+            assert_eq!(i.resamples_used + i.resamples_undefined, 300);
+            assert!(i.lower.unwrap() <= i.upper.unwrap());
+        }
+        // Two sheets: replicates are {a,a}, {a,b}, {b,b}; the mAP is always defined
+        // because both sheets hold pumps, and the micro AP spans its extremes.
+        assert_eq!(iv.map_all_point.resamples_undefined, 0);
+        // Sheet b alone has micro AP 1 (pump found, the valve a false alarm at a lower score).
+        assert_eq!(iv.micro_ap_all_point.upper, Some(1.0));
+    }
+
+    #[test]
+    fn bad_input_is_named() {
+        let cfg = SheetEvalConfig { bootstrap: None, ..SheetEvalConfig::default() };
+        let mut s = sheets();
+        s[1].detections[1].class = "reducer".into();
+        let msg = evaluate_sheets(&s, &names(), &cfg).unwrap_err().to_string();
+        assert!(msg.contains("sheet \"b\", detection #1") && msg.contains("reducer"), "{msg}");
+        let mut s = sheets();
+        s[1].detections[0].sheet = "a".into();
+        assert!(matches!(evaluate_sheets(&s, &names(), &cfg), Err(EvalError::WrongSheet { index: 0, .. })));
+        let mut s = sheets();
+        s[1].sheet = "a".into();
+        for d in &mut s[1].detections {
+            d.sheet = "a".into();
+        }
+        assert!(matches!(evaluate_sheets(&s, &names(), &cfg), Err(EvalError::DuplicateSheet { .. })));
+        let mut s = sheets();
+        s[0].detections[2].score = f64::NAN;
+        let msg = evaluate_sheets(&s, &names(), &cfg).unwrap_err().to_string();
+        assert!(msg.contains("detection #2, score"), "{msg}");
+        let mut s = sheets();
+        s[0].truths[0].bbox.w = 0.0;
+        assert!(evaluate_sheets(&s, &names(), &cfg).is_err());
+        assert!(evaluate_sheets(&[], &names(), &cfg).is_err());
+        let bad = SheetEvalConfig { criterion: MatchCriterion::Iou { min_iou: 0.0 }, ..cfg };
+        assert!(evaluate_sheets(&sheets(), &names(), &bad).is_err());
+    }
 }

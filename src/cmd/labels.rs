@@ -38,15 +38,19 @@ impl From<FormatArg> for Format {
 #[derive(Debug, Subcommand)]
 pub enum LabelsAction {
     /// Check every label document: boxes, classes, overlaps, sizes, sheet hashes.
-    #[command(after_help = "Errors exit with 2; warnings exit with 0 unless --strict.\n\n\
-Example:\n  symtrust labels check --site ./north-unit --strict")]
+    #[command(
+        after_help = "Errors exit with 2; warnings exit with 0 unless --strict.\n\n\
+Example:\n  symtrust labels check --site ./north-unit --strict"
+    )]
     Check {
         /// Treat warnings as errors (exit code 2 when there is any).
         #[arg(long)]
         strict: bool,
     },
     /// Import labels from a CSV or COCO-format file; accepted labels are never overwritten.
-    #[command(after_help = "Example:\n  symtrust labels import --site ./north-unit --format csv reviewed.csv")]
+    #[command(
+        after_help = "Example:\n  symtrust labels import --site ./north-unit --format csv reviewed.csv"
+    )]
     Import {
         /// Format of the file.
         #[arg(long, value_enum)]
@@ -55,7 +59,9 @@ Example:\n  symtrust labels check --site ./north-unit --strict")]
         file: PathBuf,
     },
     /// Export every symbol (all review states) to a CSV or COCO-format file.
-    #[command(after_help = "Example:\n  symtrust labels export --site ./north-unit --format coco --out labels-coco.json")]
+    #[command(
+        after_help = "Example:\n  symtrust labels export --site ./north-unit --format coco --out labels-coco.json"
+    )]
     Export {
         /// Format of the file.
         #[arg(long, value_enum)]

@@ -23,8 +23,23 @@ pub fn relu(x: &Tensor) -> Result<Tensor> {
 }
 
 /// 2 x 2 max pooling with stride 2; an odd last row or column is dropped.
+///
+/// Written as a reshape and two max reductions rather than Candle's
+/// `max_pool2d`, whose backward pass in candle-core 0.11.1 multiplies the
+/// gradient by the fraction of maxima in each 2 x 2 block instead of dividing
+/// by their count (a quarter of the true gradient for a unique maximum, and
+/// misaligned for odd sizes); the finite-difference test in
+/// `tests/suite/gradients.rs` caught it. The max reduction's backward routes
+/// the gradient to the maximum, as it should.
 pub fn max_pool2(x: &Tensor) -> Result<Tensor> {
-    x.max_pool2d(crate::arch::POOL)
+    let (b, c, h, w) = x.dims4()?;
+    let (h2, w2) = (h / 2, w / 2);
+    let x = if h % 2 != 0 || w % 2 != 0 {
+        x.narrow(2, 0, 2 * h2)?.narrow(3, 0, 2 * w2)?
+    } else {
+        x.clone()
+    };
+    x.contiguous()?.reshape((b, c, h2, 2, w2, 2))?.max(5)?.max(3)
 }
 
 #[cfg(test)]
@@ -45,5 +60,35 @@ mod tests {
         let p = max_pool2(&x).unwrap();
         assert_eq!(p.dims(), &[1, 1, 1, 1]);
         assert_eq!(p.flatten_all().unwrap().to_vec1::<f32>().unwrap(), vec![4.]);
+    }
+
+    #[test]
+    fn pooling_matches_candles_stock_forward_on_odd_sizes() {
+        // Naive twin: candle-core's own max_pool2d (its forward is right; only
+        // its backward is off).
+        let dev = Device::Cpu;
+        let mut rng = symtrust_labels::SeededRng::new(3);
+        let v: Vec<f32> = (0..2 * 3 * 7 * 9).map(|_| rng.uniform() as f32).collect();
+        let x = Tensor::from_vec(v, (2, 3, 7, 9), &dev).unwrap();
+        let ours = max_pool2(&x).unwrap();
+        let stock = x.max_pool2d(2).unwrap();
+        assert_eq!(ours.dims(), stock.dims());
+        assert_eq!(
+            ours.flatten_all().unwrap().to_vec1::<f32>().unwrap(),
+            stock.flatten_all().unwrap().to_vec1::<f32>().unwrap()
+        );
+    }
+
+    #[test]
+    fn pooling_gradient_goes_whole_to_the_maximum() {
+        // d/dx of sum(maxpool(x)) is 1 at each block's maximum, 0 elsewhere.
+        let dev = Device::Cpu;
+        let x = candle_core::Var::from_tensor(
+            &Tensor::new(&[[[[1f32, 5.], [2., 3.]]]], &dev).unwrap(),
+        )
+        .unwrap();
+        let g = max_pool2(x.as_tensor()).unwrap().sum_all().unwrap().backward().unwrap();
+        let g = g.get(x.as_tensor()).unwrap().flatten_all().unwrap().to_vec1::<f32>().unwrap();
+        assert_eq!(g, vec![0., 1., 0., 0.]);
     }
 }

@@ -81,6 +81,9 @@ pub struct CocoCategory {
 /// A whole COCO-format file (other top-level keys are ignored on reading).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct CocoFile {
+    /// Free-form description of the file (read and ignored on import).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub info: Option<serde_json::Value>,
     /// The sheets.
     pub images: Vec<CocoImage>,
     /// The symbols.
@@ -137,6 +140,7 @@ pub fn build(docs: &[LabelDocument], classes: &[String]) -> CocoFile {
         })
         .collect();
     CocoFile {
+        info: None,
         images,
         annotations,
         categories,
@@ -145,12 +149,11 @@ pub fn build(docs: &[LabelDocument], classes: &[String]) -> CocoFile {
 
 /// The bytes of the COCO export of these documents.
 pub fn render(docs: &[LabelDocument], classes: &[String], site_name: &str) -> Vec<u8> {
-    let file = build(docs, classes);
-    let mut value = serde_json::to_value(&file).expect("COCO files always serialise");
-    value["info"] = serde_json::json!({
+    let mut file = build(docs, classes);
+    file.info = Some(serde_json::json!({
         "description": format!("symtrust label export of site {site_name}"),
-    });
-    let mut bytes = serde_json::to_vec_pretty(&value).expect("COCO files always serialise");
+    }));
+    let mut bytes = serde_json::to_vec_pretty(&file).expect("COCO files always serialise");
     bytes.push(b'\n');
     bytes
 }

@@ -67,7 +67,10 @@ pub fn parse(path: &Path, bytes: &[u8]) -> Result<Vec<(Location, Row)>> {
                 Ok(v) if v.is_finite() => Ok(v),
                 _ => Err(at.error(
                     path,
-                    format!("column {} = {text:?} is not a finite number", HEADER[i]),
+                    format!(
+                        "column {} = {text:?} is not a finite number; fix the value",
+                        HEADER[i]
+                    ),
                 )),
             }
         };
@@ -106,7 +109,7 @@ fn csv_error(path: &Path, err: &csv::Error) -> LabelError {
     let line = err.position().map_or(0, |p| p.line());
     let message = match err.kind() {
         csv::ErrorKind::UnequalLengths { len, .. } => format!(
-            "the row has {len} columns instead of {}; the file may be truncated or a field may hold an unquoted comma",
+            "the row has {len} columns instead of {}; the file may be truncated or a field may hold an unquoted comma: re-export it or repair the row",
             HEADER.len()
         ),
         csv::ErrorKind::Utf8 { .. } => "the row is not valid UTF-8".to_string(),

@@ -224,13 +224,19 @@ fn validate(
         }
         let b = &row.bbox;
         if !b.is_finite() {
-            return Err(at.error(path, "the box has a non-finite number"));
+            return Err(at.error(
+                path,
+                "the box has a non-finite number; give four finite numbers",
+            ));
         }
         if row.state != ReviewState::Rejected {
             if b.w <= 0.0 || b.h <= 0.0 {
                 return Err(at.error(
                     path,
-                    format!("the box has a non-positive size {} x {}", b.w, b.h),
+                    format!(
+                        "the box has a non-positive size {} x {}; fix its width and height",
+                        b.w, b.h
+                    ),
                 ));
             }
             let (w, h) = (doc.sheet.width, doc.sheet.height);
@@ -238,7 +244,7 @@ fn validate(
                 return Err(at.error(
                     path,
                     format!(
-                        "the box ({}, {}, {}, {}) lies partly outside the {w} x {h} sheet {}",
+                        "the box ({}, {}, {}, {}) lies partly outside the {w} x {h} sheet {}; move or clip it to the sheet",
                         b.x, b.y, b.w, b.h, row.sheet
                     ),
                 ));

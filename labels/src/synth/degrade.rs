@@ -164,7 +164,9 @@ fn kanungo_flip(m: &mut Mask, d: &Degradation, dpi: f64, seed: u64) {
     let scale = (200.0 / dpi).powi(2);
     let (a_px, b_px) = (d.alpha * scale, d.beta * scale);
     let cap = distance_cap(a_px.min(b_px));
+    let tt = std::time::Instant::now();
     let d2 = capped_distance_sq(m, cap);
+    eprintln!("T dist {:?}", tt.elapsed());
     let table = |amp: f64, decay: f64| -> Vec<f64> {
         (0..=cap * cap)
             .map(|k| amp * (-decay * k as f64).exp() + d.eta)
@@ -374,26 +376,32 @@ pub(crate) fn degrade(
         0.0
     };
     let (w, h) = (mask.width as usize, mask.height as usize);
+    let t0 = std::time::Instant::now();
     let mut m = mask.clone();
     if d.flips() {
         kanungo_flip(&mut m, d, dpi, flip_seed);
     }
+    eprintln!("T flip {:?}", t0.elapsed());
     let k = ((d.closing as f64) * dpi / 200.0).round() as usize;
     if k > 1 {
         m = closing(&m, k);
     }
+    eprintln!("T close {:?}", t0.elapsed());
     let mut grey: Vec<u8> = m
         .data
         .iter()
         .map(|v| if *v != 0 { 0 } else { 255 })
         .collect();
     blur(&mut grey, w, h, d.blur_sigma * dpi / 200.0);
+    eprintln!("T blur {:?}", t0.elapsed());
     if theta != 0.0 {
         grey = rotate(&grey, w, h, theta);
     }
+    eprintln!("T rot {:?}", t0.elapsed());
     if d.ink_level != 0.0 || d.paper_level != 255.0 || d.noise_sd > 0.0 {
         paper_and_noise(&mut grey, w, d, noise_seed);
     }
+    eprintln!("T noise {:?}", t0.elapsed());
     let img = GrayImage::from_raw(mask.width, mask.height, grey).expect("buffer matches size");
     (img, theta)
 }
