@@ -53,6 +53,11 @@ pub enum Command {
     Labels(cmd::labels::LabelsArgs),
     /// Build crop libraries.
     Crops(cmd::crops::CropsArgs),
+    /// Train a symbol classifier on a crop library and write `models/<id>/`.
+    #[command(
+        after_help = "Example:\n  symtrust train --site ./north-unit --epochs 20 --seed 7"
+    )]
+    Train(cmd::train::TrainArgs),
     /// Run the whole job on the built-in synthetic plant.
     #[command(after_help = "Example:\n  symtrust demo --out ./symtrust-demo")]
     Demo(cmd::demo::DemoArgs),
@@ -66,6 +71,7 @@ pub fn dispatch(ctx: &Ctx, command: Command) -> anyhow::Result<u8> {
         Command::Sheets(args) => cmd::sheets::run(ctx, &args),
         Command::Labels(args) => cmd::labels::run(ctx, &args),
         Command::Crops(args) => cmd::crops::run(ctx, &args),
+        Command::Train(args) => cmd::train::run(ctx, &args),
         Command::Demo(args) => cmd::demo::run(ctx, &args),
     }
 }

@@ -391,3 +391,63 @@ fn export_to_a_missing_folder_fails_and_writes_nothing() {
     assert!(run.stderr.contains("no/such/dir/x.csv"), "{}", run.stderr);
     assert!(!tmp.path().join("no").exists());
 }
+
+#[test]
+fn the_synthetic_plant_checks_clean_and_round_trips_through_both_formats() {
+    let tmp = tempfile::tempdir().unwrap();
+    let site = util::synthetic_site(tmp.path());
+    let v = symtrust(tmp.path(), &["labels", "check", "--site", "site", "--json"]).json();
+    assert_eq!(v["errors"], 0, "{v}");
+    for (format, name) in [("csv", "all.csv"), ("coco", "all.json")] {
+        let out = tmp.path().join(name);
+        let out_s = out.to_str().unwrap();
+        symtrust(
+            tmp.path(),
+            &[
+                "labels", "export", "--site", "site", "--format", format, "--out", out_s,
+            ],
+        )
+        .expect_code(0);
+        // A fresh copy: the same registered sheets, every symbol removed.
+        let fresh = tmp.path().join(format!("fresh-{format}"));
+        util::copy_dir(&site, &fresh);
+        let store = LabelStore::new(&Site::open(&fresh).unwrap());
+        let mut total = 0;
+        for id in store.sheet_ids().unwrap() {
+            let mut doc = store.load(&id).unwrap();
+            total += doc.symbols.len();
+            doc.symbols.clear();
+            store.save(&doc, "tester").unwrap();
+        }
+        assert!(total > 0, "the synthetic plant has labels");
+        let fresh_s = fresh.to_str().unwrap();
+        let v = symtrust(
+            tmp.path(),
+            &[
+                "labels", "import", "--site", fresh_s, "--format", format, out_s, "--json",
+            ],
+        )
+        .expect_code(0)
+        .json();
+        assert_eq!(v["added"].as_u64(), Some(total as u64));
+        let again = tmp.path().join(format!("again-{name}"));
+        symtrust(
+            tmp.path(),
+            &[
+                "labels",
+                "export",
+                "--site",
+                fresh_s,
+                "--format",
+                format,
+                "--out",
+                again.to_str().unwrap(),
+            ],
+        )
+        .expect_code(0);
+        assert!(
+            std::fs::read(&again).unwrap() == std::fs::read(&out).unwrap(),
+            "{format} export differs after the round trip"
+        );
+    }
+}

@@ -13,7 +13,7 @@
 //! out and counted. Randomness comes only from `SeededRng`, so a seed
 //! reproduces the interval exactly.
 
-use crate::error::{in_range, setting, EvalError, Result};
+use crate::error::{EvalError, Result, in_range, setting};
 use serde::{Deserialize, Serialize};
 use symtrust_labels::SeededRng;
 
@@ -43,11 +43,17 @@ impl BootstrapConfig {
     /// Rejects zero replicates or a level outside `(0, 1)`.
     pub fn validate(&self) -> Result<()> {
         if self.resamples == 0 {
-            return Err(setting("bootstrap resamples", "needs at least one replicate"));
+            return Err(setting(
+                "bootstrap resamples",
+                "needs at least one replicate",
+            ));
         }
         in_range(|| "bootstrap level".into(), self.level, 0.0, 1.0)?;
         if self.level <= 0.0 || self.level >= 1.0 {
-            return Err(setting("bootstrap level", "must lie strictly between 0 and 1"));
+            return Err(setting(
+                "bootstrap level",
+                "must lie strictly between 0 and 1",
+            ));
         }
         Ok(())
     }
@@ -73,7 +79,9 @@ pub struct Interval {
 /// Empirical quantile `p` of `values` with linear interpolation (see module comment).
 pub fn quantile(values: &[f64], p: f64) -> Result<f64> {
     if values.is_empty() {
-        return Err(EvalError::Empty { what: "values for a quantile".into() });
+        return Err(EvalError::Empty {
+            what: "values for a quantile".into(),
+        });
     }
     in_range(|| "quantile level".into(), p, 0.0, 1.0)?;
     let mut v = values.to_vec();
@@ -92,16 +100,26 @@ pub fn quantile(values: &[f64], p: f64) -> Result<f64> {
 pub fn resample_indices(n_sheets: usize, cfg: &BootstrapConfig) -> Result<Vec<Vec<usize>>> {
     cfg.validate()?;
     if n_sheets == 0 {
-        return Err(EvalError::Empty { what: "sheets to resample".into() });
+        return Err(EvalError::Empty {
+            what: "sheets to resample".into(),
+        });
     }
     let mut rng = SeededRng::new(cfg.seed);
     Ok((0..cfg.resamples)
-        .map(|_| (0..n_sheets).map(|_| rng.below(n_sheets as u64) as usize).collect())
+        .map(|_| {
+            (0..n_sheets)
+                .map(|_| rng.below(n_sheets as u64) as usize)
+                .collect()
+        })
         .collect())
 }
 
 /// Builds the interval from an estimate and the replicate values.
-pub fn interval_from(estimate: Option<f64>, replicates: &[Option<f64>], level: f64) -> Result<Interval> {
+pub fn interval_from(
+    estimate: Option<f64>,
+    replicates: &[Option<f64>],
+    level: f64,
+) -> Result<Interval> {
     let defined: Vec<f64> = replicates.iter().flatten().copied().collect();
     let (lower, upper) = if defined.is_empty() {
         (None, None)
@@ -149,24 +167,43 @@ mod tests {
 
     #[test]
     fn seeded_and_reproducible() {
-        let cfg = BootstrapConfig { resamples: 200, seed: 9, level: 0.9 };
+        let cfg = BootstrapConfig {
+            resamples: 200,
+            seed: 9,
+            level: 0.9,
+        };
         let vals = [0.2, 0.9, 0.4, 0.7, 0.5];
-        let mean = |idx: &[usize]| Some(idx.iter().map(|&i| vals[i]).sum::<f64>() / idx.len() as f64);
+        let mean =
+            |idx: &[usize]| Some(idx.iter().map(|&i| vals[i]).sum::<f64>() / idx.len() as f64);
         let a = bootstrap_sheets(vals.len(), &cfg, mean).unwrap();
         let b = bootstrap_sheets(vals.len(), &cfg, mean).unwrap();
         assert_eq!(a, b);
         let (lo, hi) = (a.lower.unwrap(), a.upper.unwrap());
         assert!(lo < a.estimate.unwrap() && a.estimate.unwrap() < hi);
         assert!(lo >= 0.2 && hi <= 0.9);
-        let other = bootstrap_sheets(vals.len(), &BootstrapConfig { seed: 10, ..cfg }, mean).unwrap();
+        let other =
+            bootstrap_sheets(vals.len(), &BootstrapConfig { seed: 10, ..cfg }, mean).unwrap();
         assert_ne!(a, other);
     }
 
     #[test]
     fn draws_cover_sheets_with_repeats() {
-        let draws = resample_indices(3, &BootstrapConfig { resamples: 300, seed: 1, level: 0.95 }).unwrap();
-        assert!(draws.iter().all(|d| d.len() == 3 && d.iter().all(|&i| i < 3)));
-        // With 3 sheets, 3 of every 9 draws... some replicate repeats a sheet.
+        let draws = resample_indices(
+            3,
+            &BootstrapConfig {
+                resamples: 300,
+                seed: 1,
+                level: 0.95,
+            },
+        )
+        .unwrap();
+        assert!(
+            draws
+                .iter()
+                .all(|d| d.len() == 3 && d.iter().all(|&i| i < 3))
+        );
+        // Sheets are drawn with replacement: the first two draws agree with
+        // probability 1/3, so among 300 replicates some repeat a sheet.
         assert!(draws.iter().any(|d| d[0] == d[1]));
         let mut seen = [0usize; 3];
         for i in draws.iter().flatten() {
@@ -177,12 +214,26 @@ mod tests {
 
     #[test]
     fn undefined_replicates_are_counted() {
-        let cfg = BootstrapConfig { resamples: 100, seed: 3, level: 0.95 };
+        let cfg = BootstrapConfig {
+            resamples: 100,
+            seed: 3,
+            level: 0.95,
+        };
         // Defined only when sheet 0 is drawn.
         let iv = bootstrap_sheets(4, &cfg, |idx| idx.contains(&0).then_some(1.0)).unwrap();
         assert_eq!(iv.resamples_used + iv.resamples_undefined, 100);
         assert!(iv.resamples_undefined > 0 && iv.resamples_used > 0);
         assert!(bootstrap_sheets(0, &cfg, |_| Some(1.0)).is_err());
-        assert!(bootstrap_sheets(2, &BootstrapConfig { resamples: 0, ..cfg }, |_| Some(1.0)).is_err());
+        assert!(
+            bootstrap_sheets(
+                2,
+                &BootstrapConfig {
+                    resamples: 0,
+                    ..cfg
+                },
+                |_| Some(1.0)
+            )
+            .is_err()
+        );
     }
 }

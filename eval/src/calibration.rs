@@ -15,7 +15,7 @@
 //! temperature scaling with `T = 1/a`. Scores are clamped to
 //! `[1e-12, 1 - 1e-12]` before the logit.
 
-use crate::error::{in_range, setting, EvalError, Result};
+use crate::error::{EvalError, Result, in_range, setting};
 use serde::{Deserialize, Serialize};
 
 /// One bin of a reliability diagram.
@@ -48,7 +48,9 @@ pub struct Calibration {
 
 fn check_scores(items: &[(f64, bool)]) -> Result<()> {
     if items.is_empty() {
-        return Err(EvalError::Empty { what: "scores to calibrate".into() });
+        return Err(EvalError::Empty {
+            what: "scores to calibrate".into(),
+        });
     }
     for (i, (s, _)) in items.iter().enumerate() {
         in_range(|| format!("scored item #{i}, score"), *s, 0.0, 1.0)?;
@@ -152,15 +154,30 @@ pub fn fit_platt(items: &[(f64, bool)]) -> Result<PlattScaling> {
             "Platt scaling needs both true and false detections among the validation scores",
         ));
     }
-    let max_of = |want: bool| items.iter().filter(|i| i.1 == want).map(|i| i.0).fold(f64::MIN, f64::max);
-    let min_of = |want: bool| items.iter().filter(|i| i.1 == want).map(|i| i.0).fold(f64::MAX, f64::min);
+    let max_of = |want: bool| {
+        items
+            .iter()
+            .filter(|i| i.1 == want)
+            .map(|i| i.0)
+            .fold(f64::MIN, f64::max)
+    };
+    let min_of = |want: bool| {
+        items
+            .iter()
+            .filter(|i| i.1 == want)
+            .map(|i| i.0)
+            .fold(f64::MAX, f64::min)
+    };
     if max_of(false) < min_of(true) || max_of(true) < min_of(false) {
         return Err(setting(
             "calibration data",
             "the validation scores separate true from false detections perfectly, so Platt scaling has no finite fit",
         ));
     }
-    let xs: Vec<(f64, f64)> = items.iter().map(|&(s, y)| (logit(s), f64::from(u8::from(y)))).collect();
+    let xs: Vec<(f64, f64)> = items
+        .iter()
+        .map(|&(s, y)| (logit(s), f64::from(u8::from(y))))
+        .collect();
     let (mut a, mut b) = (1.0, 0.0);
     for _ in 0..100 {
         // Gradient and Hessian of the mean log-loss in (a, b).
@@ -193,6 +210,36 @@ pub fn fit_platt(items: &[(f64, bool)]) -> Result<PlattScaling> {
         "calibration data",
         "Platt scaling did not converge in 100 Newton steps",
     ))
+}
+
+/// Platt scaling fitted on validation items and judged on held-out items.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FittedCalibration {
+    /// The map fitted on the validation items.
+    pub scaling: PlattScaling,
+    /// Calibration of the raw held-out scores.
+    pub held_out_raw: Calibration,
+    /// Calibration of the held-out scores after the map.
+    pub held_out_scaled: Calibration,
+}
+
+/// Fits Platt scaling on `validation` and reports the held-out calibration
+/// before and after it (the fit never sees the held-out items).
+pub fn fit_and_judge(
+    validation: &[(f64, bool)],
+    held_out: &[(f64, bool)],
+    n_bins: usize,
+) -> Result<FittedCalibration> {
+    let scaling = fit_platt(validation)?;
+    let scaled: Vec<(f64, bool)> = held_out
+        .iter()
+        .map(|&(s, y)| (scaling.apply(s), y))
+        .collect();
+    Ok(FittedCalibration {
+        scaling,
+        held_out_raw: calibration(held_out, n_bins)?,
+        held_out_scaled: calibration(&scaled, n_bins)?,
+    })
 }
 
 #[cfg(test)]
@@ -242,8 +289,19 @@ mod tests {
             }
         }
         let fit = fit_platt(&items).unwrap();
-        assert!((fit.a - 2.0).abs() < 0.01 && (fit.b + 0.5).abs() < 0.01, "{fit:?}");
+        assert!(
+            (fit.a - 2.0).abs() < 0.01 && (fit.b + 0.5).abs() < 0.01,
+            "{fit:?}"
+        );
         assert!(fit_platt(&[(0.2, true), (0.3, true)]).is_err());
+        // Over-confident held-out scores: the map fitted on validation data from the
+        // same source brings the held-out ECE down.
+        let held: Vec<(f64, bool)> = items.iter().step_by(7).copied().collect();
+        let judged = fit_and_judge(&items, &held, 10).unwrap();
+        assert!(
+            judged.held_out_scaled.ece < judged.held_out_raw.ece,
+            "{judged:?}"
+        );
         assert!(fit_platt(&[(0.2, false), (0.9, true)]).is_err());
     }
 }

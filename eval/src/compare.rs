@@ -26,10 +26,10 @@
 //! A class without ground truth on the sheets cannot be judged and is listed
 //! as such; it neither passes nor fails the challenger.
 
-use crate::ap::{mean_defined, ApFigures};
-use crate::bootstrap::{interval_from, resample_indices, BootstrapConfig, Interval};
-use crate::error::{in_range, EvalError, Result};
-use crate::sheet_eval::{pooled_curve, SheetOutcomes};
+use crate::ap::{ApFigures, mean_defined};
+use crate::bootstrap::{BootstrapConfig, Interval, interval_from, resample_indices};
+use crate::error::{EvalError, Result, in_range};
+use crate::sheet_eval::{SheetOutcomes, pooled_curve};
 use crate::special::{binomial_half_cdf, chi2_sf_1dof};
 use serde::{Deserialize, Serialize};
 
@@ -79,8 +79,15 @@ pub struct PairedApComparison {
     pub map: ApDifference,
 }
 
-fn aps(s: &[SheetOutcomes], idx: &[usize], n: usize, kind: ApKind) -> (Vec<Option<f64>>, Option<f64>) {
-    let v: Vec<Option<f64>> = (0..n).map(|k| kind.pick(&ApFigures::of(&pooled_curve(s, idx, Some(k))))).collect();
+fn aps(
+    s: &[SheetOutcomes],
+    idx: &[usize],
+    n: usize,
+    kind: ApKind,
+) -> (Vec<Option<f64>>, Option<f64>) {
+    let v: Vec<Option<f64>> = (0..n)
+        .map(|k| kind.pick(&ApFigures::of(&pooled_curve(s, idx, Some(k)))))
+        .collect();
     let m = mean_defined(v.iter().copied());
     (v, m)
 }
@@ -102,14 +109,21 @@ pub fn paired_bootstrap_ap(
         let l = champion.get(i).map_or("<none>", |s| s.sheet.as_str());
         let r = challenger.get(i).map_or("<none>", |s| s.sheet.as_str());
         if l != r {
-            return Err(EvalError::SheetsDiffer { position: i, left: l.into(), right: r.into() });
+            return Err(EvalError::SheetsDiffer {
+                position: i,
+                left: l.into(),
+                right: r.into(),
+            });
         }
     }
     let n = class_names.len();
     for (what, side) in [("champion", champion), ("challenger", challenger)] {
         if let Some(s) = side.iter().find(|s| s.truths_per_class.len() != n) {
             return Err(EvalError::LengthMismatch {
-                what: format!("{what}, sheet {:?}: ground-truth counts (one per class)", s.sheet),
+                what: format!(
+                    "{what}, sheet {:?}: ground-truth counts (one per class)",
+                    s.sheet
+                ),
                 expected: n,
                 got: s.truths_per_class.len(),
             });
@@ -183,7 +197,11 @@ pub struct McNemarResult {
 
 /// McNemar's test; `exact_below` is the discordant count under which the exact
 /// binomial test is used (25 is common practice).
-pub fn mcnemar(champion_right: &[bool], challenger_right: &[bool], exact_below: u64) -> Result<McNemarResult> {
+pub fn mcnemar(
+    champion_right: &[bool],
+    challenger_right: &[bool],
+    exact_below: u64,
+) -> Result<McNemarResult> {
     if champion_right.len() != challenger_right.len() {
         return Err(EvalError::LengthMismatch {
             what: "challenger crop decisions (one per champion decision)".into(),
@@ -199,7 +217,11 @@ pub fn mcnemar(champion_right: &[bool], challenger_right: &[bool], exact_below: 
     let (b, c) = (champion_only, challenger_only);
     let n = b + c;
     let (method, statistic, p_value) = if n < exact_below {
-        let p = if n == 0 { 1.0 } else { (2.0 * binomial_half_cdf(b.min(c), n)).min(1.0) };
+        let p = if n == 0 {
+            1.0
+        } else {
+            (2.0 * binomial_half_cdf(b.min(c), n)).min(1.0)
+        };
         (McNemarMethod::ExactBinomial, None, p)
     } else {
         // The textbook statistic, unclamped: b = c gives 1 / (b + c), not 0
@@ -207,7 +229,15 @@ pub fn mcnemar(champion_right: &[bool], challenger_right: &[bool], exact_below: 
         let x = ((b as f64 - c as f64).abs() - 1.0).powi(2) / n as f64;
         (McNemarMethod::ChiSquareCorrected, Some(x), chi2_sf_1dof(x))
     };
-    Ok(McNemarResult { both_right, champion_only, challenger_only, both_wrong, method, statistic, p_value })
+    Ok(McNemarResult {
+        both_right,
+        champion_only,
+        challenger_only,
+        both_wrong,
+        method,
+        statistic,
+        p_value,
+    })
 }
 
 /// How a class's AP-difference interval is judged against the margin.
@@ -273,11 +303,20 @@ pub fn verdict(cmp: &PairedApComparison, margin: f64, rule: VerdictRule) -> Resu
                         VerdictRule::NonInferiority => lo < -margin,
                         VerdictRule::NoSignificantLoss => hi < -margin,
                     };
-                    if worse { ClassJudgement::Worse } else { ClassJudgement::NotWorse }
+                    if worse {
+                        ClassJudgement::Worse
+                    } else {
+                        ClassJudgement::NotWorse
+                    }
                 }
                 _ => ClassJudgement::NoData,
             };
-            VerdictLine { class: d.class.clone().unwrap_or_default(), lower: lo, upper: hi, judgement }
+            VerdictLine {
+                class: d.class.clone().unwrap_or_default(),
+                lower: lo,
+                upper: hi,
+                judgement,
+            }
         })
         .collect();
     Ok(Verdict {
@@ -300,15 +339,26 @@ mod tests {
             outcomes: ranked
                 .iter()
                 .enumerate()
-                .map(|(i, &tp)| Outcome { class: 0, score: 0.99 - i as f64 * 0.01, true_positive: tp, duplicate: false })
+                .map(|(i, &tp)| Outcome {
+                    class: 0,
+                    score: 0.99 - i as f64 * 0.01,
+                    true_positive: tp,
+                    duplicate: false,
+                })
                 .collect(),
         }
     }
 
     #[test]
     fn identical_models_differ_by_exactly_zero() {
-        let s: Vec<SheetOutcomes> = (0..6).map(|i| sheet(&format!("s{i}"), 3, &[true, i % 2 == 0, true, false])).collect();
-        let cfg = BootstrapConfig { resamples: 100, seed: 4, level: 0.95 };
+        let s: Vec<SheetOutcomes> = (0..6)
+            .map(|i| sheet(&format!("s{i}"), 3, &[true, i % 2 == 0, true, false]))
+            .collect();
+        let cfg = BootstrapConfig {
+            resamples: 100,
+            seed: 4,
+            level: 0.95,
+        };
         let c = paired_bootstrap_ap(&s, &s, &["valve".into()], ApKind::AllPoint, &cfg).unwrap();
         assert_eq!(c.map.difference.lower, Some(0.0));
         assert_eq!(c.map.difference.upper, Some(0.0));
@@ -318,10 +368,19 @@ mod tests {
 
     #[test]
     fn a_clearly_worse_challenger_is_rejected() {
-        let good: Vec<SheetOutcomes> = (0..8).map(|i| sheet(&format!("s{i}"), 2, &[true, true, false])).collect();
-        let bad: Vec<SheetOutcomes> = (0..8).map(|i| sheet(&format!("s{i}"), 2, &[false, false, true])).collect();
-        let cfg = BootstrapConfig { resamples: 200, seed: 1, level: 0.95 };
-        let c = paired_bootstrap_ap(&good, &bad, &["valve".into()], ApKind::Points101, &cfg).unwrap();
+        let good: Vec<SheetOutcomes> = (0..8)
+            .map(|i| sheet(&format!("s{i}"), 2, &[true, true, false]))
+            .collect();
+        let bad: Vec<SheetOutcomes> = (0..8)
+            .map(|i| sheet(&format!("s{i}"), 2, &[false, false, true]))
+            .collect();
+        let cfg = BootstrapConfig {
+            resamples: 200,
+            seed: 1,
+            level: 0.95,
+        };
+        let c =
+            paired_bootstrap_ap(&good, &bad, &["valve".into()], ApKind::Points101, &cfg).unwrap();
         assert!(c.map.difference.upper.unwrap() < -0.3);
         for rule in [VerdictRule::NonInferiority, VerdictRule::NoSignificantLoss] {
             let v = verdict(&c, 0.05, rule).unwrap();
@@ -329,16 +388,27 @@ mod tests {
             assert_eq!(v.lines[0].judgement, ClassJudgement::Worse);
         }
         // The better model replacing the worse one passes.
-        let c = paired_bootstrap_ap(&bad, &good, &["valve".into()], ApKind::AllPoint, &cfg).unwrap();
-        assert!(verdict(&c, 0.0, VerdictRule::NonInferiority).unwrap().promote);
+        let c =
+            paired_bootstrap_ap(&bad, &good, &["valve".into()], ApKind::AllPoint, &cfg).unwrap();
+        assert!(
+            verdict(&c, 0.0, VerdictRule::NonInferiority)
+                .unwrap()
+                .promote
+        );
     }
 
     #[test]
     fn sheets_must_pair_up() {
         let a = vec![sheet("s1", 1, &[true])];
         let b = vec![sheet("s2", 1, &[true])];
-        let cfg = BootstrapConfig { resamples: 10, seed: 1, level: 0.95 };
-        let msg = paired_bootstrap_ap(&a, &b, &["valve".into()], ApKind::AllPoint, &cfg).unwrap_err().to_string();
+        let cfg = BootstrapConfig {
+            resamples: 10,
+            seed: 1,
+            level: 0.95,
+        };
+        let msg = paired_bootstrap_ap(&a, &b, &["valve".into()], ApKind::AllPoint, &cfg)
+            .unwrap_err()
+            .to_string();
         assert!(msg.contains("s1") && msg.contains("s2"), "{msg}");
     }
 
@@ -348,7 +418,15 @@ mod tests {
         let a = [true, false, false, false, false, false, true];
         let b = [false, true, true, true, true, true, true];
         let r = mcnemar(&a, &b, 25).unwrap();
-        assert_eq!((r.champion_only, r.challenger_only, r.both_right, r.both_wrong), (1, 5, 1, 0));
+        assert_eq!(
+            (
+                r.champion_only,
+                r.challenger_only,
+                r.both_right,
+                r.both_wrong
+            ),
+            (1, 5, 1, 0)
+        );
         assert_eq!(r.method, McNemarMethod::ExactBinomial);
         assert!((r.p_value - 0.21875).abs() < 1e-15);
         // Forced chi-square: (|1 - 5| - 1)^2 / 6 = 1.5.

@@ -23,7 +23,7 @@
 //! once in its column.
 
 use crate::error::{EvalError, Result};
-use crate::matching::{match_across_classes, match_sheet, ClassedBox, MatchCriterion, ScoredBox};
+use crate::matching::{ClassedBox, MatchCriterion, ScoredBox, match_across_classes, match_sheet};
 use serde::{Deserialize, Serialize};
 
 /// Label of the extra detection-table row: detections that found no symbol.
@@ -67,7 +67,11 @@ fn ratio(num: u64, den: u64) -> Option<f64> {
 
 /// Confusion table of crop decisions: `truth[i]` and `predicted[i]` are class
 /// indices into `class_names` (which includes background).
-pub fn crop_confusion(truth: &[usize], predicted: &[usize], class_names: &[String]) -> Result<ConfusionTable> {
+pub fn crop_confusion(
+    truth: &[usize],
+    predicted: &[usize],
+    class_names: &[String],
+) -> Result<ConfusionTable> {
     if truth.len() != predicted.len() {
         return Err(EvalError::LengthMismatch {
             what: "predicted classes (one per crop)".into(),
@@ -139,12 +143,29 @@ pub fn add_sheet_to_detection_table(
     threshold: f64,
 ) {
     let n = table.rows.len() - 1;
-    let kept: Vec<ScoredBox> = dets.iter().filter(|d| d.score >= threshold).copied().collect();
+    let kept: Vec<ScoredBox> = dets
+        .iter()
+        .filter(|d| d.score >= threshold)
+        .copied()
+        .collect();
     let first = match_sheet(truths, &kept, criterion);
     let cross = match_across_classes(truths, &kept, criterion, &first);
-    let mut truth_found = first.truth_det.iter().map(Option::is_some).collect::<Vec<_>>();
-    let mut det_used = first.det_truth.iter().map(Option::is_some).collect::<Vec<_>>();
-    for (d, t) in first.det_truth.iter().enumerate().filter_map(|(d, t)| t.map(|t| (d, t))) {
+    let mut truth_found = first
+        .truth_det
+        .iter()
+        .map(Option::is_some)
+        .collect::<Vec<_>>();
+    let mut det_used = first
+        .det_truth
+        .iter()
+        .map(Option::is_some)
+        .collect::<Vec<_>>();
+    for (d, t) in first
+        .det_truth
+        .iter()
+        .enumerate()
+        .filter_map(|(d, t)| t.map(|t| (d, t)))
+    {
         table.counts[truths[t].class][kept[d].class] += 1;
     }
     for &(d, t) in &cross {
@@ -195,8 +216,14 @@ mod tests {
         assert_eq!(t.counts, vec![vec![1, 1, 0], vec![0, 2, 0], vec![1, 0, 0]]);
         let f = t.class_figures();
         // Class 0: TP 1, FP 1, FN 1 -> P = R = F1 = 0.5. Class 2: never predicted.
-        assert_eq!((f[0].precision, f[0].recall, f[0].f1), (Some(0.5), Some(0.5), Some(0.5)));
-        assert_eq!((f[2].precision, f[2].recall, f[2].f1), (None, Some(0.0), Some(0.0)));
+        assert_eq!(
+            (f[0].precision, f[0].recall, f[0].f1),
+            (Some(0.5), Some(0.5), Some(0.5))
+        );
+        assert_eq!(
+            (f[2].precision, f[2].recall, f[2].f1),
+            (None, Some(0.0), Some(0.0))
+        );
         assert_eq!(t.accuracy(), Some(0.6));
         assert!(crop_confusion(&[0, 3], &[0, 0], &names(3)).is_err());
         assert!(crop_confusion(&[0], &[0, 0], &names(3)).is_err());
@@ -206,16 +233,45 @@ mod tests {
     fn detection_table_by_hand() {
         let b = |x: f64| BBox::new(x, 0.0, 10.0, 10.0);
         let truths = [
-            ClassedBox { class: 0, bbox: b(0.0) },
-            ClassedBox { class: 1, bbox: b(100.0) },
-            ClassedBox { class: 1, bbox: b(200.0) },
+            ClassedBox {
+                class: 0,
+                bbox: b(0.0),
+            },
+            ClassedBox {
+                class: 1,
+                bbox: b(100.0),
+            },
+            ClassedBox {
+                class: 1,
+                bbox: b(200.0),
+            },
         ];
         let dets = [
-            ScoredBox { class: 0, score: 0.9, bbox: b(0.0) },   // right
-            ScoredBox { class: 0, score: 0.8, bbox: b(1.0) },   // duplicate -> none
-            ScoredBox { class: 0, score: 0.7, bbox: b(100.0) }, // class 1 seen as 0
-            ScoredBox { class: 1, score: 0.6, bbox: b(500.0) }, // background
-            ScoredBox { class: 1, score: 0.1, bbox: b(200.0) }, // below threshold
+            ScoredBox {
+                class: 0,
+                score: 0.9,
+                bbox: b(0.0),
+            }, // right
+            ScoredBox {
+                class: 0,
+                score: 0.8,
+                bbox: b(1.0),
+            }, // duplicate -> none
+            ScoredBox {
+                class: 0,
+                score: 0.7,
+                bbox: b(100.0),
+            }, // class 1 seen as 0
+            ScoredBox {
+                class: 1,
+                score: 0.6,
+                bbox: b(500.0),
+            }, // background
+            ScoredBox {
+                class: 1,
+                score: 0.1,
+                bbox: b(200.0),
+            }, // below threshold
         ];
         let mut t = empty_detection_table(&names(2));
         add_sheet_to_detection_table(&mut t, &truths, &dets, &MatchCriterion::default(), 0.5);

@@ -9,9 +9,9 @@
 //! 101-point; [`crate::ap`]) and ROC AUC ([`crate::roc`]).
 
 use crate::ap::ApFigures;
-use crate::confusion::{crop_confusion, ClassFigures, ConfusionTable};
-use crate::error::{in_range, EvalError, Result};
-use crate::pr::{pr_curve, PrCurve};
+use crate::confusion::{ClassFigures, ConfusionTable, crop_confusion};
+use crate::error::{EvalError, Result, in_range};
+use crate::pr::{PrCurve, pr_curve};
 use crate::roc::roc_curve;
 use serde::{Deserialize, Serialize};
 
@@ -55,10 +55,16 @@ pub fn argmax(row: &[f64]) -> usize {
 }
 
 /// Evaluates crops (see the module comment). Scores must lie in `[0, 1]`.
-pub fn evaluate_crops(truth: &[usize], scores: &[Vec<f64>], class_names: &[String]) -> Result<CropEvaluation> {
+pub fn evaluate_crops(
+    truth: &[usize],
+    scores: &[Vec<f64>],
+    class_names: &[String],
+) -> Result<CropEvaluation> {
     let n = class_names.len();
     if n == 0 {
-        return Err(EvalError::Empty { what: "class list".into() });
+        return Err(EvalError::Empty {
+            what: "class list".into(),
+        });
     }
     if truth.len() != scores.len() {
         return Err(EvalError::LengthMismatch {
@@ -76,14 +82,23 @@ pub fn evaluate_crops(truth: &[usize], scores: &[Vec<f64>], class_names: &[Strin
             });
         }
         for (k, v) in row.iter().enumerate() {
-            in_range(|| format!("crop #{i}, score of class {:?}", class_names[k]), *v, 0.0, 1.0)?;
+            in_range(
+                || format!("crop #{i}, score of class {:?}", class_names[k]),
+                *v,
+                0.0,
+                1.0,
+            )?;
         }
     }
     let predicted: Vec<usize> = scores.iter().map(|r| argmax(r)).collect();
     let confusion = crop_confusion(truth, &predicted, class_names)?;
     let mut one_vs_rest = Vec::with_capacity(n);
     for (k, name) in class_names.iter().enumerate() {
-        let items: Vec<(f64, bool)> = scores.iter().zip(truth).map(|(r, &t)| (r[k], t == k)).collect();
+        let items: Vec<(f64, bool)> = scores
+            .iter()
+            .zip(truth)
+            .map(|(r, &t)| (r[k], t == k))
+            .collect();
         let n_pos = truth.iter().filter(|&&t| t == k).count() as u64;
         let pr = pr_curve(&items, n_pos)?;
         one_vs_rest.push(OneVsRest {
@@ -108,9 +123,17 @@ mod tests {
 
     #[test]
     fn small_set_by_hand() {
-        let names: Vec<String> = ["background", "valve"].iter().map(|s| s.to_string()).collect();
+        let names: Vec<String> = ["background", "valve"]
+            .iter()
+            .map(|s| s.to_string())
+            .collect();
         let truth = [0, 1, 1, 0];
-        let scores = vec![vec![0.8, 0.2], vec![0.3, 0.7], vec![0.6, 0.4], vec![0.5, 0.5]];
+        let scores = vec![
+            vec![0.8, 0.2],
+            vec![0.3, 0.7],
+            vec![0.6, 0.4],
+            vec![0.5, 0.5],
+        ];
         let e = evaluate_crops(&truth, &scores, &names).unwrap();
         // Arg-max: 0, 1, 0, 0 (the 0.5/0.5 tie goes to index 0).
         assert_eq!(e.confusion.counts, vec![vec![2, 0], vec![1, 1]]);
@@ -123,9 +146,13 @@ mod tests {
     #[test]
     fn bad_rows_are_named() {
         let names: Vec<String> = vec!["a".into(), "b".into()];
-        let msg = evaluate_crops(&[0, 1], &[vec![0.5, 0.5], vec![0.5]], &names).unwrap_err().to_string();
+        let msg = evaluate_crops(&[0, 1], &[vec![0.5, 0.5], vec![0.5]], &names)
+            .unwrap_err()
+            .to_string();
         assert!(msg.contains("crop #1"), "{msg}");
-        let msg = evaluate_crops(&[0], &[vec![0.5, f64::NAN]], &names).unwrap_err().to_string();
+        let msg = evaluate_crops(&[0], &[vec![0.5, f64::NAN]], &names)
+            .unwrap_err()
+            .to_string();
         assert!(msg.contains("crop #0") && msg.contains("\"b\""), "{msg}");
         assert!(evaluate_crops(&[2], &[vec![0.5, 0.5]], &names).is_err());
     }

@@ -74,7 +74,9 @@ pub enum EvalError {
         found: String,
     },
     /// Two models were not evaluated on the same sheets in the same order.
-    #[error("paired comparison needs the same sheets in the same order: position {position} holds {left:?} and {right:?}")]
+    #[error(
+        "paired comparison needs the same sheets in the same order: position {position} holds {left:?} and {right:?}"
+    )]
     SheetsDiffer {
         /// Position in the sheet lists.
         position: usize,

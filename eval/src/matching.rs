@@ -15,9 +15,9 @@
 //! matching by [`outside_ignore`]: a box whose centre lies in an ignore region
 //! is removed, ground truth and detections alike.
 
-use crate::error::{in_range, setting, Result};
-use symtrust_labels::BBox;
+use crate::error::{Result, in_range, setting};
 use serde::{Deserialize, Serialize};
+use symtrust_labels::BBox;
 
 /// When a detection counts as finding a ground-truth symbol.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
@@ -49,13 +49,19 @@ impl MatchCriterion {
             MatchCriterion::Iou { min_iou } => {
                 in_range(|| "match criterion min_iou".into(), min_iou, 0.0, 1.0)?;
                 if min_iou <= 0.0 {
-                    return Err(setting("min_iou", "must be above 0: at 0 every pair of boxes would match"));
+                    return Err(setting(
+                        "min_iou",
+                        "must be above 0: at 0 every pair of boxes would match",
+                    ));
                 }
                 Ok(())
             }
-            MatchCriterion::CentreDistance { max_distance } => {
-                in_range(|| "match criterion max_distance".into(), max_distance, 0.0, f64::MAX)
-            }
+            MatchCriterion::CentreDistance { max_distance } => in_range(
+                || "match criterion max_distance".into(),
+                max_distance,
+                0.0,
+                f64::MAX,
+            ),
         }
     }
 
@@ -116,7 +122,11 @@ pub fn score_order(dets: &[ScoredBox]) -> Vec<usize> {
 }
 
 /// Same-class greedy matching of one sheet (see the module comment).
-pub fn match_sheet(truths: &[ClassedBox], dets: &[ScoredBox], criterion: &MatchCriterion) -> Assignment {
+pub fn match_sheet(
+    truths: &[ClassedBox],
+    dets: &[ScoredBox],
+    criterion: &MatchCriterion,
+) -> Assignment {
     let mut a = Assignment {
         det_truth: vec![None; dets.len()],
         duplicate: vec![false; dets.len()],
@@ -197,10 +207,17 @@ mod tests {
     use super::*;
 
     fn t(class: usize, x: f64, y: f64) -> ClassedBox {
-        ClassedBox { class, bbox: BBox::new(x, y, 10.0, 10.0) }
+        ClassedBox {
+            class,
+            bbox: BBox::new(x, y, 10.0, 10.0),
+        }
     }
     fn d(class: usize, score: f64, x: f64, y: f64) -> ScoredBox {
-        ScoredBox { class, score, bbox: BBox::new(x, y, 10.0, 10.0) }
+        ScoredBox {
+            class,
+            score,
+            bbox: BBox::new(x, y, 10.0, 10.0),
+        }
     }
 
     #[test]
@@ -218,7 +235,11 @@ mod tests {
     fn class_must_agree_and_iou_threshold_is_inclusive() {
         // A 10x5 box inside a 10x10 box: intersection 50, union 100, IoU exactly 0.5.
         let truths = [t(0, 0.0, 0.0), t(1, 100.0, 0.0)];
-        let half = ScoredBox { class: 0, score: 0.8, bbox: BBox::new(0.0, 0.0, 10.0, 5.0) };
+        let half = ScoredBox {
+            class: 0,
+            score: 0.8,
+            bbox: BBox::new(0.0, 0.0, 10.0, 5.0),
+        };
         let dets = [d(1, 0.9, 0.0, 0.0), half];
         let a = match_sheet(&truths, &dets, &MatchCriterion::Iou { min_iou: 0.5 });
         assert_eq!(a.det_truth, vec![None, Some(0)]);
@@ -240,18 +261,29 @@ mod tests {
         assert_eq!(a.det_truth, vec![Some(1), Some(0)]);
         // Equally good symbols: the one listed first wins.
         let truths = [t(0, 0.0, 0.0), t(0, 4.0, 0.0)];
-        let a = match_sheet(&truths, &[d(0, 0.5, 2.0, 0.0)], &MatchCriterion::Iou { min_iou: 0.3 });
+        let a = match_sheet(
+            &truths,
+            &[d(0, 0.5, 2.0, 0.0)],
+            &MatchCriterion::Iou { min_iou: 0.3 },
+        );
         assert_eq!(a.det_truth, vec![Some(0)]);
     }
 
     #[test]
     fn centre_distance_option() {
         let truths = [t(0, 0.0, 0.0)];
-        let dets = [ScoredBox { class: 0, score: 0.5, bbox: BBox::centered(8.0, 5.0, 30.0, 30.0) }];
+        let dets = [ScoredBox {
+            class: 0,
+            score: 0.5,
+            bbox: BBox::centered(8.0, 5.0, 30.0, 30.0),
+        }];
         let c = MatchCriterion::CentreDistance { max_distance: 3.0 };
         assert_eq!(match_sheet(&truths, &dets, &c).det_truth, vec![Some(0)]);
         // The same pair has IoU 100/900, far below 0.5.
-        assert_eq!(match_sheet(&truths, &dets, &MatchCriterion::default()).det_truth, vec![None]);
+        assert_eq!(
+            match_sheet(&truths, &dets, &MatchCriterion::default()).det_truth,
+            vec![None]
+        );
         let c = MatchCriterion::CentreDistance { max_distance: 2.9 };
         assert_eq!(match_sheet(&truths, &dets, &c).det_truth, vec![None]);
     }
@@ -263,11 +295,54 @@ mod tests {
         assert!(outside_ignore(&BBox::new(40.0, 40.0, 22.0, 22.0), &ignore));
     }
 
+    proptest::proptest! {
+        #[test]
+        fn greedy_matching_invariants(
+            truths in proptest::collection::vec((0usize..2, 0u8..10, 0u8..10), 0..10),
+            dets in proptest::collection::vec((0usize..2, 0u8..6, 0u8..10, 0u8..10), 0..14),
+            min_iou in 0.1..0.9f64,
+        ) {
+            let b = |x: u8, y: u8| BBox::new(f64::from(x) * 3.0, f64::from(y) * 3.0, 10.0, 10.0);
+            let truths: Vec<ClassedBox> = truths.iter().map(|&(c, x, y)| ClassedBox { class: c, bbox: b(x, y) }).collect();
+            let dets: Vec<ScoredBox> = dets.iter().map(|&(c, s, x, y)| ScoredBox { class: c, score: f64::from(s) / 6.0, bbox: b(x, y) }).collect();
+            let crit = MatchCriterion::Iou { min_iou };
+            let a = match_sheet(&truths, &dets, &crit);
+            let order = score_order(&dets);
+            let rank = |d: usize| order.iter().position(|&o| o == d).unwrap();
+            for (d, t) in a.det_truth.iter().enumerate() {
+                match t {
+                    Some(t) => {
+                        // A match is mutual, of the same class and fits.
+                        proptest::prop_assert_eq!(a.truth_det[*t], Some(d));
+                        proptest::prop_assert_eq!(truths[*t].class, dets[d].class);
+                        proptest::prop_assert!(crit.fit(&dets[d].bbox, &truths[*t].bbox).is_some());
+                    }
+                    None => {
+                        // Every fitting same-class symbol was taken by a detection ranked earlier,
+                        // and the duplicate flag says whether there was one.
+                        let fitting: Vec<usize> = (0..truths.len())
+                            .filter(|&t| truths[t].class == dets[d].class && crit.fit(&dets[d].bbox, &truths[t].bbox).is_some())
+                            .collect();
+                        for &t in &fitting {
+                            let by = a.truth_det[t];
+                            proptest::prop_assert!(by.is_some_and(|o| rank(o) < rank(d)));
+                        }
+                        proptest::prop_assert_eq!(a.duplicate[d], !fitting.is_empty());
+                    }
+                }
+            }
+        }
+    }
+
     #[test]
     fn settings_are_checked() {
         assert!(MatchCriterion::Iou { min_iou: 0.0 }.validate().is_err());
         assert!(MatchCriterion::Iou { min_iou: 1.2 }.validate().is_err());
-        assert!(MatchCriterion::CentreDistance { max_distance: -1.0 }.validate().is_err());
+        assert!(
+            MatchCriterion::CentreDistance { max_distance: -1.0 }
+                .validate()
+                .is_err()
+        );
         assert!(MatchCriterion::default().validate().is_ok());
     }
 }

@@ -13,8 +13,8 @@
 //! boxes) cells it covers, instead of with every kept box. The tests check it
 //! against the plain O(n^2) loop.
 
-use crate::error::{in_range, Result};
-use crate::matching::{score_order, ScoredBox};
+use crate::error::{Result, in_range};
+use crate::matching::{ScoredBox, score_order};
 use serde::{Deserialize, Serialize};
 use std::collections::HashMap;
 
@@ -95,7 +95,11 @@ mod tests {
     }
 
     fn sb(class: usize, score: f64, x: f64, y: f64, w: f64, h: f64) -> ScoredBox {
-        ScoredBox { class, score, bbox: BBox::new(x, y, w, h) }
+        ScoredBox {
+            class,
+            score,
+            bbox: BBox::new(x, y, w, h),
+        }
     }
 
     #[test]

@@ -13,8 +13,8 @@
 //! Ties go to the higher threshold (fewer detections for the same figure). Each
 //! is `None` when no positives exist or no point meets the requirement.
 
-use crate::error::{in_range, Result};
-use crate::pr::{f1, PrCurve, PrPoint};
+use crate::error::{Result, in_range};
+use crate::pr::{PrCurve, PrPoint, f1};
 use serde::{Deserialize, Serialize};
 
 /// A threshold and what the detector achieves there.
@@ -67,15 +67,34 @@ pub fn f1_max(curve: &PrCurve) -> Option<OperatingPoint> {
 }
 
 /// The highest precision among points with `recall >= required_recall`.
-pub fn precision_at_recall(curve: &PrCurve, required_recall: f64) -> Result<Option<OperatingPoint>> {
+pub fn precision_at_recall(
+    curve: &PrCurve,
+    required_recall: f64,
+) -> Result<Option<OperatingPoint>> {
     in_range(|| "required recall".to_string(), required_recall, 0.0, 1.0)?;
-    Ok(best_by(curve, |p| p.recall >= required_recall, |p| p.precision))
+    Ok(best_by(
+        curve,
+        |p| p.recall >= required_recall,
+        |p| p.precision,
+    ))
 }
 
 /// The highest recall among points with `precision >= required_precision`.
-pub fn recall_at_precision(curve: &PrCurve, required_precision: f64) -> Result<Option<OperatingPoint>> {
-    in_range(|| "required precision".to_string(), required_precision, 0.0, 1.0)?;
-    Ok(best_by(curve, |p| p.precision >= required_precision, |p| p.recall))
+pub fn recall_at_precision(
+    curve: &PrCurve,
+    required_precision: f64,
+) -> Result<Option<OperatingPoint>> {
+    in_range(
+        || "required precision".to_string(),
+        required_precision,
+        0.0,
+        1.0,
+    )?;
+    Ok(best_by(
+        curve,
+        |p| p.precision >= required_precision,
+        |p| p.recall,
+    ))
 }
 
 #[cfg(test)]
@@ -87,7 +106,17 @@ mod tests {
     fn curve() -> PrCurve {
         // Ranked + - + + - with 5 positives: points (P, R) = (1, .2), (.5, .2),
         // (2/3, .4), (.75, .6), (.6, .6) (hand calculation).
-        pr_curve(&[(0.9, true), (0.8, false), (0.7, true), (0.6, true), (0.5, false)], 5).unwrap()
+        pr_curve(
+            &[
+                (0.9, true),
+                (0.8, false),
+                (0.7, true),
+                (0.6, true),
+                (0.5, false),
+            ],
+            5,
+        )
+        .unwrap()
     }
 
     #[test]
@@ -98,7 +127,10 @@ mod tests {
         assert_eq!(best.threshold, 0.6);
         assert!((best.f1 - 2.0 / 3.0).abs() < 1e-12);
         // Recall >= 0.4: points at 0.7 (2/3), 0.6 (3/4), 0.5 (.6) -> 0.6.
-        assert_eq!(precision_at_recall(&c, 0.4).unwrap().unwrap().threshold, 0.6);
+        assert_eq!(
+            precision_at_recall(&c, 0.4).unwrap().unwrap().threshold,
+            0.6
+        );
         // Precision >= 0.9 is only met at 0.9, with recall 0.2.
         let p = recall_at_precision(&c, 0.9).unwrap().unwrap();
         assert_eq!((p.threshold, p.recall), (0.9, 0.2));

@@ -18,12 +18,12 @@
 //!
 //! Detections come out in descending score order (ties: class, then row-major).
 
-use crate::error::{setting, EvalError, Result};
-use crate::matching::{outside_ignore, ScoredBox};
-use crate::nms::{nms, NmsScope};
+use crate::error::{EvalError, Result, setting};
+use crate::matching::{ScoredBox, outside_ignore};
+use crate::nms::{NmsScope, nms};
 use serde::{Deserialize, Serialize};
-use symtrust_labels::detections::Detection;
 use symtrust_labels::BBox;
+use symtrust_labels::detections::Detection;
 
 /// Window scores of one sheet, one plane per symbol class (background planes
 /// are left out by the caller).
@@ -92,7 +92,11 @@ impl ScoreGrid {
             }
             if let Some(i) = p.iter().position(|s| !s.is_finite()) {
                 return Err(EvalError::NonFinite {
-                    what: format!("score plane {k}, cell ({}, {})", i / self.cols, i % self.cols),
+                    what: format!(
+                        "score plane {k}, cell ({}, {})",
+                        i / self.cols,
+                        i % self.cols
+                    ),
                     value: f64::from(p[i]),
                 });
             }
@@ -138,12 +142,22 @@ impl ScoreGrid {
     pub fn window_box(&self, i: usize) -> BBox {
         let (r, c) = (i / self.cols, i % self.cols);
         let s = f64::from(self.stride);
-        BBox::new(c as f64 * s, r as f64 * s, f64::from(self.window), f64::from(self.window))
+        BBox::new(
+            c as f64 * s,
+            r as f64 * s,
+            f64::from(self.window),
+            f64::from(self.window),
+        )
     }
 }
 
 /// Turns the score grid of `sheet` into detections (see the module comment).
-pub fn detect(sheet: &str, grid: &ScoreGrid, class_names: &[String], cfg: &DetectConfig) -> Result<Vec<Detection>> {
+pub fn detect(
+    sheet: &str,
+    grid: &ScoreGrid,
+    class_names: &[String],
+    cfg: &DetectConfig,
+) -> Result<Vec<Detection>> {
     grid.validate(class_names.len())?;
     crate::error::finite(|| "min_score".into(), cfg.min_score)?;
     if let BoxSize::Nominal(sizes) = &cfg.box_size {
@@ -154,10 +168,16 @@ pub fn detect(sheet: &str, grid: &ScoreGrid, class_names: &[String], cfg: &Detec
                 got: sizes.len(),
             });
         }
-        if let Some(k) = sizes.iter().position(|(w, h)| !(w.is_finite() && h.is_finite() && *w > 0.0 && *h > 0.0)) {
+        if let Some(k) = sizes
+            .iter()
+            .position(|(w, h)| !(w.is_finite() && h.is_finite() && *w > 0.0 && *h > 0.0))
+        {
             return Err(setting(
                 "nominal box size",
-                format!("class {:?} has size {:?}; both sides must be positive", class_names[k], sizes[k]),
+                format!(
+                    "class {:?} has size {:?}; both sides must be positive",
+                    class_names[k], sizes[k]
+                ),
             ));
         }
     }
@@ -173,7 +193,11 @@ pub fn detect(sheet: &str, grid: &ScoreGrid, class_names: &[String], cfg: &Detec
                 }
             };
             if outside_ignore(&bbox, &cfg.ignore) {
-                cands.push(ScoredBox { class: k, score: f64::from(grid.planes[k][i]), bbox });
+                cands.push(ScoredBox {
+                    class: k,
+                    score: f64::from(grid.planes[k][i]),
+                    bbox,
+                });
             }
         }
     }
@@ -199,12 +223,23 @@ pub fn detect(sheet: &str, grid: &ScoreGrid, class_names: &[String], cfg: &Detec
 mod tests {
     use super::*;
 
-    fn grid_with(rows: usize, cols: usize, bumps: &[(usize, usize, usize, f32)], n: usize) -> ScoreGrid {
+    fn grid_with(
+        rows: usize,
+        cols: usize,
+        bumps: &[(usize, usize, usize, f32)],
+        n: usize,
+    ) -> ScoreGrid {
         let mut planes = vec![vec![0.0f32; rows * cols]; n];
         for &(k, r, c, v) in bumps {
             planes[k][r * cols + c] = v;
         }
-        ScoreGrid { rows, cols, stride: 8, window: 32, planes }
+        ScoreGrid {
+            rows,
+            cols,
+            stride: 8,
+            window: 32,
+            planes,
+        }
     }
 
     fn cfg() -> DetectConfig {
@@ -228,8 +263,14 @@ mod tests {
         let d = detect("s1", &g, &names(), &cfg()).unwrap();
         assert_eq!(d.len(), 1);
         assert_eq!((d[0].x, d[0].y, d[0].w, d[0].h), (24.0, 16.0, 32.0, 32.0));
-        assert_eq!((d[0].class.as_str(), d[0].score), ("valve", f64::from(0.9f32)));
-        let nominal = DetectConfig { box_size: BoxSize::Nominal(vec![(20.0, 10.0), (5.0, 5.0)]), ..cfg() };
+        assert_eq!(
+            (d[0].class.as_str(), d[0].score),
+            ("valve", f64::from(0.9f32))
+        );
+        let nominal = DetectConfig {
+            box_size: BoxSize::Nominal(vec![(20.0, 10.0), (5.0, 5.0)]),
+            ..cfg()
+        };
         let d = detect("s1", &g, &names(), &nominal).unwrap();
         assert_eq!((d[0].x, d[0].y, d[0].w, d[0].h), (30.0, 27.0, 20.0, 10.0));
     }
@@ -237,7 +278,17 @@ mod tests {
     #[test]
     fn plateau_gives_one_peak_and_nms_merges_close_peaks() {
         // A flat 2x2 plateau: only its first cell in row-major order is a peak.
-        let g = grid_with(5, 5, &[(1, 1, 1, 0.7), (1, 1, 2, 0.7), (1, 2, 1, 0.7), (1, 2, 2, 0.7)], 2);
+        let g = grid_with(
+            5,
+            5,
+            &[
+                (1, 1, 1, 0.7),
+                (1, 1, 2, 0.7),
+                (1, 2, 1, 0.7),
+                (1, 2, 2, 0.7),
+            ],
+            2,
+        );
         assert_eq!(g.peaks(1, 0.5), vec![6]);
         // Two separate peaks two cells apart (16 px, IoU of 32-px windows = 1/3 > 0.3).
         let g = grid_with(5, 5, &[(0, 2, 0, 0.8), (0, 2, 2, 0.9)], 2);
@@ -245,7 +296,10 @@ mod tests {
         let d = detect("s1", &g, &names(), &cfg()).unwrap();
         assert_eq!(d.len(), 1);
         assert_eq!(d[0].score, f64::from(0.9f32));
-        let loose = DetectConfig { nms_iou: 0.5, ..cfg() };
+        let loose = DetectConfig {
+            nms_iou: 0.5,
+            ..cfg()
+        };
         assert_eq!(detect("s1", &g, &names(), &loose).unwrap().len(), 2);
     }
 
@@ -253,7 +307,10 @@ mod tests {
     fn ignore_regions_and_min_score() {
         let g = grid_with(6, 6, &[(0, 0, 0, 0.9), (1, 4, 4, 0.95), (0, 4, 0, 0.4)], 2);
         // Window of (0,0) has centre (16, 16): inside the ignore box.
-        let c = DetectConfig { ignore: vec![BBox::new(0.0, 0.0, 20.0, 20.0)], ..cfg() };
+        let c = DetectConfig {
+            ignore: vec![BBox::new(0.0, 0.0, 20.0, 20.0)],
+            ..cfg()
+        };
         let d = detect("s1", &g, &names(), &c).unwrap();
         assert_eq!(d.len(), 1);
         assert_eq!(d[0].class, "pump");
@@ -270,7 +327,10 @@ mod tests {
         g.stride = 0;
         assert!(detect("s1", &g, &names(), &cfg()).is_err());
         let g = grid_with(3, 3, &[], 2);
-        let bad = DetectConfig { box_size: BoxSize::Nominal(vec![(0.0, 3.0), (1.0, 1.0)]), ..cfg() };
+        let bad = DetectConfig {
+            box_size: BoxSize::Nominal(vec![(0.0, 3.0), (1.0, 1.0)]),
+            ..cfg()
+        };
         assert!(detect("s1", &g, &names(), &bad).is_err());
     }
 }

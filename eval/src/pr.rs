@@ -15,7 +15,7 @@
 //! still lists its points with recall 0, and every metric built on it
 //! (AP, operating points) returns `None`.
 
-use crate::error::{finite, Result};
+use crate::error::{Result, finite};
 use serde::{Deserialize, Serialize};
 
 /// One point of a PR curve.
@@ -62,7 +62,9 @@ pub fn pr_curve(items: &[(f64, bool)], n_positives: u64) -> Result<PrCurve> {
     if labelled > n_positives {
         return Err(crate::error::setting(
             "n_positives",
-            format!("{labelled} items are labelled positive but only {n_positives} positives exist"),
+            format!(
+                "{labelled} items are labelled positive but only {n_positives} positives exist"
+            ),
         ));
     }
     let mut sorted: Vec<(f64, bool)> = items.to_vec();
@@ -127,7 +129,11 @@ mod tests {
                     tp,
                     fp,
                     precision: tp as f64 / (tp + fp) as f64,
-                    recall: if n_pos == 0 { 0.0 } else { tp as f64 / n_pos as f64 },
+                    recall: if n_pos == 0 {
+                        0.0
+                    } else {
+                        tp as f64 / n_pos as f64
+                    },
                 }
             })
             .collect()
@@ -139,7 +145,10 @@ mod tests {
         // t=0.9: 1/1, recall 1/3; t=0.8: 2/3, 2/3; t=0.3: 2/4, 2/3 (hand calculation).
         let c = pr_curve(&[(0.9, true), (0.8, false), (0.8, true), (0.3, false)], 3).unwrap();
         let got: Vec<(f64, f64)> = c.points.iter().map(|p| (p.precision, p.recall)).collect();
-        assert_eq!(got, vec![(1.0, 1.0 / 3.0), (2.0 / 3.0, 2.0 / 3.0), (0.5, 2.0 / 3.0)]);
+        assert_eq!(
+            got,
+            vec![(1.0, 1.0 / 3.0), (2.0 / 3.0, 2.0 / 3.0), (0.5, 2.0 / 3.0)]
+        );
         assert_eq!(c.at_threshold(0.5).unwrap().threshold, 0.8);
         assert!(c.at_threshold(0.95).is_none());
     }

@@ -8,14 +8,15 @@
 //! `AUC = (#{s+ > s-} + 0.5 * #{s+ = s-}) / (P * N)`; the tests check the
 //! trapezoid against that pair count. `None` when either class is absent.
 
-use crate::error::{finite, Result};
+use crate::error::{Result, finite};
 use serde::{Deserialize, Serialize};
 
 /// One ROC point.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct RocPoint {
-    /// Items scored `>= threshold` are called positive (`+inf` for the origin).
-    pub threshold: f64,
+    /// Items scored `>= threshold` are called positive (`None` for the origin,
+    /// where none is; kept out of band so the curve serialises to plain JSON).
+    pub threshold: Option<f64>,
     /// False-positive rate.
     pub fpr: f64,
     /// True-positive rate (recall).
@@ -42,7 +43,7 @@ pub fn roc_curve(items: &[(f64, bool)]) -> Result<RocCurve> {
     sorted.sort_by(|a, b| b.0.total_cmp(&a.0));
     let rate = |k: f64, n: f64| if n > 0.0 { k / n } else { 0.0 };
     let mut points = vec![RocPoint {
-        threshold: f64::INFINITY,
+        threshold: None,
         fpr: 0.0,
         tpr: 0.0,
     }];
@@ -61,7 +62,7 @@ pub fn roc_curve(items: &[(f64, bool)]) -> Result<RocCurve> {
         }
         let prev = *points.last().expect("origin is present");
         let p = RocPoint {
-            threshold: t,
+            threshold: Some(t),
             fpr: rate(fp, n_neg),
             tpr: rate(tp, n_pos),
         };
@@ -87,7 +88,13 @@ mod tests {
         let mut wins = 0.0;
         for p in &pos {
             for n in &neg {
-                wins += if p > n { 1.0 } else if p == n { 0.5 } else { 0.0 };
+                wins += if p > n {
+                    1.0
+                } else if p == n {
+                    0.5
+                } else {
+                    0.0
+                };
             }
         }
         Some(wins / (pos.len() * neg.len()) as f64)

@@ -29,18 +29,18 @@
 //! intervals show sheet-to-sheet variation, not the uncertainty of choosing
 //! the threshold.
 
-use crate::ap::{mean_defined, ApFigures};
-use crate::bootstrap::{interval_from, resample_indices, BootstrapConfig, Interval};
-use crate::calibration::{calibration, Calibration};
-use crate::confusion::{add_sheet_to_detection_table, empty_detection_table, ConfusionTable};
-use crate::error::{in_range, setting, EvalError, Result};
-use crate::matching::{match_sheet, outside_ignore, ClassedBox, MatchCriterion, ScoredBox};
-use crate::operating::{f1_max, precision_at_recall, recall_at_precision, OperatingPoint};
-use crate::pr::{f1, pr_curve, PrCurve};
+use crate::ap::{ApFigures, mean_defined};
+use crate::bootstrap::{BootstrapConfig, Interval, interval_from, resample_indices};
+use crate::calibration::{Calibration, calibration};
+use crate::confusion::{ConfusionTable, add_sheet_to_detection_table, empty_detection_table};
+use crate::error::{EvalError, Result, in_range, setting};
+use crate::matching::{ClassedBox, MatchCriterion, ScoredBox, match_sheet, outside_ignore};
+use crate::operating::{OperatingPoint, f1_max, precision_at_recall, recall_at_precision};
+use crate::pr::{PrCurve, f1, pr_curve};
 use serde::{Deserialize, Serialize};
 use std::collections::HashSet;
-use symtrust_labels::detections::Detection;
 use symtrust_labels::BBox;
+use symtrust_labels::detections::Detection;
 
 /// A ground-truth symbol as evaluation needs it.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -80,11 +80,14 @@ pub struct PreparedSheet {
 }
 
 fn class_index(what: impl Fn() -> String, class: &str, names: &[String]) -> Result<usize> {
-    names.iter().position(|n| n == class).ok_or_else(|| EvalError::UnknownClass {
-        what: what(),
-        class: class.to_string(),
-        known: names.to_vec(),
-    })
+    names
+        .iter()
+        .position(|n| n == class)
+        .ok_or_else(|| EvalError::UnknownClass {
+            what: what(),
+            class: class.to_string(),
+            known: names.to_vec(),
+        })
 }
 
 fn check_box(what: &dyn Fn() -> String, b: &BBox) -> Result<()> {
@@ -105,13 +108,17 @@ fn check_box(what: &dyn Fn() -> String, b: &BBox) -> Result<()> {
 /// Checks every sheet and applies its ignore regions (see the module comment).
 pub fn prepare_sheets(sheets: &[SheetInput], class_names: &[String]) -> Result<Vec<PreparedSheet>> {
     if class_names.is_empty() {
-        return Err(EvalError::Empty { what: "class list".into() });
+        return Err(EvalError::Empty {
+            what: "class list".into(),
+        });
     }
     let mut seen = HashSet::new();
     let mut out = Vec::with_capacity(sheets.len());
     for s in sheets {
         if !seen.insert(s.sheet.as_str()) {
-            return Err(EvalError::DuplicateSheet { sheet: s.sheet.clone() });
+            return Err(EvalError::DuplicateSheet {
+                sheet: s.sheet.clone(),
+            });
         }
         for (i, r) in s.ignore.iter().enumerate() {
             check_box(&|| format!("sheet {:?}, ignore region #{i}", s.sheet), r)?;
@@ -128,21 +135,37 @@ pub fn prepare_sheets(sheets: &[SheetInput], class_names: &[String]) -> Result<V
             check_box(&what, &t.bbox)?;
             let class = class_index(what, &t.class, class_names)?;
             if outside_ignore(&t.bbox, &s.ignore) {
-                p.truths.push(ClassedBox { class, bbox: t.bbox });
+                p.truths.push(ClassedBox {
+                    class,
+                    bbox: t.bbox,
+                });
             } else {
                 p.ignored_truths += 1;
             }
         }
         for (i, d) in s.detections.iter().enumerate() {
             if d.sheet != s.sheet {
-                return Err(EvalError::WrongSheet { sheet: s.sheet.clone(), index: i, found: d.sheet.clone() });
+                return Err(EvalError::WrongSheet {
+                    sheet: s.sheet.clone(),
+                    index: i,
+                    found: d.sheet.clone(),
+                });
             }
             let what = || format!("sheet {:?}, detection #{i}", s.sheet);
             check_box(&what, &d.bbox())?;
-            in_range(|| format!("sheet {:?}, detection #{i}, score", s.sheet), d.score, 0.0, 1.0)?;
+            in_range(
+                || format!("sheet {:?}, detection #{i}, score", s.sheet),
+                d.score,
+                0.0,
+                1.0,
+            )?;
             let class = class_index(what, &d.class, class_names)?;
             if outside_ignore(&d.bbox(), &s.ignore) {
-                p.dets.push(ScoredBox { class, score: d.score, bbox: d.bbox() });
+                p.dets.push(ScoredBox {
+                    class,
+                    score: d.score,
+                    bbox: d.bbox(),
+                });
             } else {
                 p.ignored_detections += 1;
             }
@@ -177,7 +200,11 @@ pub struct SheetOutcomes {
 }
 
 /// Matches one prepared sheet.
-pub fn sheet_outcomes(p: &PreparedSheet, n_classes: usize, criterion: &MatchCriterion) -> SheetOutcomes {
+pub fn sheet_outcomes(
+    p: &PreparedSheet,
+    n_classes: usize,
+    criterion: &MatchCriterion,
+) -> SheetOutcomes {
     let a = match_sheet(&p.truths, &p.dets, criterion);
     let mut truths_per_class = vec![0; n_classes];
     for t in &p.truths {
@@ -194,7 +221,11 @@ pub fn sheet_outcomes(p: &PreparedSheet, n_classes: usize, criterion: &MatchCrit
             duplicate: a.duplicate[i],
         })
         .collect();
-    SheetOutcomes { sheet: p.sheet.clone(), truths_per_class, outcomes }
+    SheetOutcomes {
+        sheet: p.sheet.clone(),
+        truths_per_class,
+        outcomes,
+    }
 }
 
 /// The pooled PR curve of the sheets `idx` (repeats count again) for one class,
@@ -215,12 +246,19 @@ pub fn pooled_curve(sheets: &[SheetOutcomes], idx: &[usize], class: Option<usize
                 .map(|o| (o.score, o.true_positive)),
         );
     }
-    pr_curve(&items, n_pos).expect("scores were checked and true positives never exceed ground truth")
+    pr_curve(&items, n_pos)
+        .expect("scores were checked and true positives never exceed ground truth")
 }
 
 /// Per-class all-point and 101-point APs of sheets `idx`, and their means.
-fn class_aps(sheets: &[SheetOutcomes], idx: &[usize], n_classes: usize) -> (Vec<ApFigures>, Option<f64>, Option<f64>) {
-    let aps: Vec<ApFigures> = (0..n_classes).map(|k| ApFigures::of(&pooled_curve(sheets, idx, Some(k)))).collect();
+fn class_aps(
+    sheets: &[SheetOutcomes],
+    idx: &[usize],
+    n_classes: usize,
+) -> (Vec<ApFigures>, Option<f64>, Option<f64>) {
+    let aps: Vec<ApFigures> = (0..n_classes)
+        .map(|k| ApFigures::of(&pooled_curve(sheets, idx, Some(k))))
+        .collect();
     let m_all = mean_defined(aps.iter().map(|a| a.all_point));
     let m_101 = mean_defined(aps.iter().map(|a| a.points_101));
     (aps, m_all, m_101)
@@ -419,10 +457,25 @@ fn choose_operating(micro: &PrCurve, rule: &OperatingRule) -> Result<Option<Oper
     match *rule {
         OperatingRule::Fixed { threshold } => {
             in_range(|| "operating threshold".into(), threshold, 0.0, 1.0)?;
-            let (tp, fp) = micro.at_threshold(threshold).map_or((0, 0), |p| (p.tp, p.fp));
-            let precision = if tp + fp > 0 { tp as f64 / (tp + fp) as f64 } else { 0.0 };
-            let recall = if micro.n_positives > 0 { tp as f64 / micro.n_positives as f64 } else { 0.0 };
-            Ok(Some(OperatingPoint { threshold, precision, recall, f1: f1(precision, recall) }))
+            let (tp, fp) = micro
+                .at_threshold(threshold)
+                .map_or((0, 0), |p| (p.tp, p.fp));
+            let precision = if tp + fp > 0 {
+                tp as f64 / (tp + fp) as f64
+            } else {
+                0.0
+            };
+            let recall = if micro.n_positives > 0 {
+                tp as f64 / micro.n_positives as f64
+            } else {
+                0.0
+            };
+            Ok(Some(OperatingPoint {
+                threshold,
+                precision,
+                recall,
+                f1: f1(precision, recall),
+            }))
         }
         OperatingRule::F1Max => Ok(f1_max(micro)),
         OperatingRule::TargetPrecision { precision } => recall_at_precision(micro, precision),
@@ -443,27 +496,44 @@ fn ratio(a: u64, b: u64) -> Option<f64> {
 }
 
 /// Evaluates held-out sheets (see the module comment).
-pub fn evaluate_sheets(sheets: &[SheetInput], class_names: &[String], cfg: &SheetEvalConfig) -> Result<SheetEvaluation> {
+pub fn evaluate_sheets(
+    sheets: &[SheetInput],
+    class_names: &[String],
+    cfg: &SheetEvalConfig,
+) -> Result<SheetEvaluation> {
     cfg.criterion.validate()?;
     in_range(|| "required recall".into(), cfg.required_recall, 0.0, 1.0)?;
-    in_range(|| "required precision".into(), cfg.required_precision, 0.0, 1.0)?;
+    in_range(
+        || "required precision".into(),
+        cfg.required_precision,
+        0.0,
+        1.0,
+    )?;
     if cfg.calibration_bins == 0 {
         return Err(setting("calibration_bins", "needs at least one bin"));
     }
     if sheets.is_empty() {
-        return Err(EvalError::Empty { what: "held-out sheets".into() });
+        return Err(EvalError::Empty {
+            what: "held-out sheets".into(),
+        });
     }
     if let Some(b) = &cfg.bootstrap {
         b.validate()?;
     }
     let n = class_names.len();
     let prepared = prepare_sheets(sheets, class_names)?;
-    let outcomes: Vec<SheetOutcomes> = prepared.iter().map(|p| sheet_outcomes(p, n, &cfg.criterion)).collect();
+    let outcomes: Vec<SheetOutcomes> = prepared
+        .iter()
+        .map(|p| sheet_outcomes(p, n, &cfg.criterion))
+        .collect();
     let all: Vec<usize> = (0..outcomes.len()).collect();
 
     let mut per_class = Vec::with_capacity(n);
     for (k, name) in class_names.iter().enumerate() {
-        per_class.push(ClassSummary { class: name.clone(), figures: summarise(pooled_curve(&outcomes, &all, Some(k)), cfg)? });
+        per_class.push(ClassSummary {
+            class: name.clone(),
+            figures: summarise(pooled_curve(&outcomes, &all, Some(k)), cfg)?,
+        });
     }
     let micro = summarise(pooled_curve(&outcomes, &all, None), cfg)?;
     let map_all_point = mean_defined(per_class.iter().map(|c| c.figures.ap.all_point));
@@ -473,9 +543,17 @@ pub fn evaluate_sheets(sheets: &[SheetInput], class_names: &[String], cfg: &Shee
         .map(|i| {
             let min_iou = f64::from(i) / 10.0;
             let crit = MatchCriterion::Iou { min_iou };
-            let o: Vec<SheetOutcomes> = prepared.iter().map(|p| sheet_outcomes(p, n, &crit)).collect();
+            let o: Vec<SheetOutcomes> = prepared
+                .iter()
+                .map(|p| sheet_outcomes(p, n, &crit))
+                .collect();
             let (_, m_all, m_101) = class_aps(&o, &all, n);
-            IouSweepRow { min_iou, map_all_point: m_all, map_101: m_101, micro_ap_all_point: ApFigures::of(&pooled_curve(&o, &all, None)).all_point }
+            IouSweepRow {
+                min_iou,
+                map_all_point: m_all,
+                map_101: m_101,
+                micro_ap_all_point: ApFigures::of(&pooled_curve(&o, &all, None)).all_point,
+            }
         })
         .collect();
 
@@ -485,7 +563,13 @@ pub fn evaluate_sheets(sheets: &[SheetInput], class_names: &[String], cfg: &Shee
             let mut table = empty_detection_table(class_names);
             let mut rows = Vec::with_capacity(prepared.len());
             for (p, o) in prepared.iter().zip(&outcomes) {
-                add_sheet_to_detection_table(&mut table, &p.truths, &p.dets, &cfg.criterion, op.threshold);
+                add_sheet_to_detection_table(
+                    &mut table,
+                    &p.truths,
+                    &p.dets,
+                    &cfg.criterion,
+                    op.threshold,
+                );
                 let (kept, tp, dup, n_truths) = counts_at(o, op.threshold);
                 rows.push(SheetRow {
                     sheet: p.sheet.clone(),
@@ -506,11 +590,27 @@ pub fn evaluate_sheets(sheets: &[SheetInput], class_names: &[String], cfg: &Shee
         None => (None, None),
     };
 
-    let scored: Vec<(f64, bool)> = outcomes.iter().flat_map(|s| s.outcomes.iter().map(|o| (o.score, o.true_positive))).collect();
-    let calibration = if scored.is_empty() { None } else { Some(calibration(&scored, cfg.calibration_bins)?) };
+    let scored: Vec<(f64, bool)> = outcomes
+        .iter()
+        .flat_map(|s| s.outcomes.iter().map(|o| (o.score, o.true_positive)))
+        .collect();
+    let calibration = if scored.is_empty() {
+        None
+    } else {
+        Some(calibration(&scored, cfg.calibration_bins)?)
+    };
 
     let intervals = match &cfg.bootstrap {
-        Some(b) => Some(sheet_intervals(&outcomes, n, operating.map(|o| o.threshold), b, &micro, map_all_point, map_101, &per_class)?),
+        Some(b) => Some(sheet_intervals(
+            &outcomes,
+            n,
+            operating.map(|o| o.threshold),
+            b,
+            &micro,
+            map_all_point,
+            map_101,
+            &per_class,
+        )?),
         None => None,
     };
 
@@ -611,11 +711,22 @@ mod tests {
     use super::*;
 
     fn det(sheet: &str, class: &str, score: f64, x: f64, y: f64) -> Detection {
-        Detection { sheet: sheet.into(), class: class.into(), score, x, y, w: 10.0, h: 10.0 }
+        Detection {
+            sheet: sheet.into(),
+            class: class.into(),
+            score,
+            x,
+            y,
+            w: 10.0,
+            h: 10.0,
+        }
     }
 
     fn truth(class: &str, x: f64, y: f64) -> TruthSymbol {
-        TruthSymbol { class: class.into(), bbox: BBox::new(x, y, 10.0, 10.0) }
+        TruthSymbol {
+            class: class.into(),
+            bbox: BBox::new(x, y, 10.0, 10.0),
+        }
     }
 
     fn names() -> Vec<String> {
@@ -627,12 +738,17 @@ mod tests {
         vec![
             SheetInput {
                 sheet: "a".into(),
-                truths: vec![truth("valve", 0.0, 0.0), truth("valve", 100.0, 0.0), truth("pump", 200.0, 0.0), truth("valve", 520.0, 520.0)],
+                truths: vec![
+                    truth("valve", 0.0, 0.0),
+                    truth("valve", 100.0, 0.0),
+                    truth("pump", 200.0, 0.0),
+                    truth("valve", 520.0, 520.0),
+                ],
                 detections: vec![
-                    det("a", "valve", 0.9, 0.0, 0.0),    // finds valve 1
-                    det("a", "valve", 0.8, 1.0, 0.0),    // duplicate of valve 1
-                    det("a", "pump", 0.7, 200.0, 0.0),   // finds the pump
-                    det("a", "valve", 0.6, 300.0, 0.0),  // background
+                    det("a", "valve", 0.9, 0.0, 0.0),      // finds valve 1
+                    det("a", "valve", 0.8, 1.0, 0.0),      // duplicate of valve 1
+                    det("a", "pump", 0.7, 200.0, 0.0),     // finds the pump
+                    det("a", "valve", 0.6, 300.0, 0.0),    // background
                     det("a", "valve", 0.95, 530.0, 530.0), // inside the ignore region
                 ],
                 ignore: vec![BBox::new(500.0, 500.0, 100.0, 100.0)],
@@ -640,7 +756,10 @@ mod tests {
             SheetInput {
                 sheet: "b".into(),
                 truths: vec![truth("pump", 0.0, 0.0)],
-                detections: vec![det("b", "pump", 0.85, 0.0, 0.0), det("b", "valve", 0.5, 0.0, 0.0)],
+                detections: vec![
+                    det("b", "pump", 0.85, 0.0, 0.0),
+                    det("b", "valve", 0.5, 0.0, 0.0),
+                ],
                 ignore: vec![],
             },
         ]
@@ -648,7 +767,10 @@ mod tests {
 
     #[test]
     fn worked_example() {
-        let cfg = SheetEvalConfig { bootstrap: None, ..SheetEvalConfig::default() };
+        let cfg = SheetEvalConfig {
+            bootstrap: None,
+            ..SheetEvalConfig::default()
+        };
         let e = evaluate_sheets(&sheets(), &names(), &cfg).unwrap();
         // Valve: 2 symbols (one ignored), ranked T F F F -> P/R (1, .5), (.5, .5),
         // (1/3, .5), (.25, .5): all-point AP 0.5, 101-point 51/101 (levels 0..0.50).
@@ -668,10 +790,29 @@ mod tests {
         // Per sheet at 0.7.
         let rows = e.per_sheet.as_ref().unwrap();
         let a = &rows[0];
-        assert_eq!((a.n_truths, a.n_kept, a.true_positives, a.false_alarms, a.duplicates, a.misses), (3, 3, 2, 1, 1, 1));
+        assert_eq!(
+            (
+                a.n_truths,
+                a.n_kept,
+                a.true_positives,
+                a.false_alarms,
+                a.duplicates,
+                a.misses
+            ),
+            (3, 3, 2, 1, 1, 1)
+        );
         assert_eq!((a.ignored_truths, a.ignored_detections), (1, 1));
         let b = &rows[1];
-        assert_eq!((b.n_truths, b.n_kept, b.true_positives, b.false_alarms, b.misses), (1, 1, 1, 0, 0));
+        assert_eq!(
+            (
+                b.n_truths,
+                b.n_kept,
+                b.true_positives,
+                b.false_alarms,
+                b.misses
+            ),
+            (1, 1, 1, 0, 0)
+        );
         // Detection confusion at 0.7: rows valve, pump, none; columns valve, pump, missed.
         let t = e.detection_confusion.as_ref().unwrap();
         assert_eq!(t.counts, vec![vec![1, 0, 1], vec![0, 2, 0], vec![1, 0, 0]]);
@@ -688,7 +829,10 @@ mod tests {
 
     #[test]
     fn sheet_order_does_not_matter() {
-        let cfg = SheetEvalConfig { bootstrap: None, ..SheetEvalConfig::default() };
+        let cfg = SheetEvalConfig {
+            bootstrap: None,
+            ..SheetEvalConfig::default()
+        };
         let a = evaluate_sheets(&sheets(), &names(), &cfg).unwrap();
         let mut rev = sheets();
         rev.reverse();
@@ -701,10 +845,18 @@ mod tests {
 
     #[test]
     fn unmet_operating_rule_leaves_tables_out() {
-        let cfg = SheetEvalConfig { bootstrap: None, operating: OperatingRule::TargetRecall { recall: 1.0 }, ..SheetEvalConfig::default() };
+        let cfg = SheetEvalConfig {
+            bootstrap: None,
+            operating: OperatingRule::TargetRecall { recall: 1.0 },
+            ..SheetEvalConfig::default()
+        };
         let e = evaluate_sheets(&sheets(), &names(), &cfg).unwrap();
         assert!(e.operating.is_none() && e.per_sheet.is_none() && e.detection_confusion.is_none());
-        let cfg = SheetEvalConfig { bootstrap: None, operating: OperatingRule::Fixed { threshold: 0.0 }, ..SheetEvalConfig::default() };
+        let cfg = SheetEvalConfig {
+            bootstrap: None,
+            operating: OperatingRule::Fixed { threshold: 0.0 },
+            ..SheetEvalConfig::default()
+        };
         let e = evaluate_sheets(&sheets(), &names(), &cfg).unwrap();
         let op = e.operating.unwrap();
         assert_eq!((op.precision, op.recall), (0.5, 0.75));
@@ -713,13 +865,19 @@ mod tests {
     #[test]
     fn a_sheet_drawn_twice_counts_twice() {
         let prepared = prepare_sheets(&sheets(), &names()).unwrap();
-        let o: Vec<SheetOutcomes> = prepared.iter().map(|p| sheet_outcomes(p, 2, &MatchCriterion::default())).collect();
+        let o: Vec<SheetOutcomes> = prepared
+            .iter()
+            .map(|p| sheet_outcomes(p, 2, &MatchCriterion::default()))
+            .collect();
         let once = pooled_curve(&o, &[0], None);
         let twice = pooled_curve(&o, &[0, 0], None);
         assert_eq!(twice.n_positives, 2 * once.n_positives);
         assert_eq!(twice.points.len(), once.points.len());
         for (p, q) in once.points.iter().zip(&twice.points) {
-            assert_eq!((2 * p.tp, 2 * p.fp, p.precision, p.recall), (q.tp, q.fp, q.precision, q.recall));
+            assert_eq!(
+                (2 * p.tp, 2 * p.fp, p.precision, p.recall),
+                (q.tp, q.fp, q.precision, q.recall)
+            );
         }
         // A multiset of different sheets is not the same as one of them doubled.
         assert_ne!(pooled_curve(&o, &[0, 1], None), twice);
@@ -727,12 +885,24 @@ mod tests {
 
     #[test]
     fn intervals_are_seeded_and_well_formed() {
-        let cfg = SheetEvalConfig { bootstrap: Some(BootstrapConfig { resamples: 300, seed: 5, level: 0.9 }), ..SheetEvalConfig::default() };
+        let cfg = SheetEvalConfig {
+            bootstrap: Some(BootstrapConfig {
+                resamples: 300,
+                seed: 5,
+                level: 0.9,
+            }),
+            ..SheetEvalConfig::default()
+        };
         let e = evaluate_sheets(&sheets(), &names(), &cfg).unwrap();
         let again = evaluate_sheets(&sheets(), &names(), &cfg).unwrap();
         assert_eq!(e.intervals, again.intervals);
         let iv = e.intervals.unwrap();
-        for i in [iv.map_all_point, iv.micro_ap_all_point, iv.precision_at_operating.unwrap(), iv.misses_per_sheet.unwrap()] {
+        for i in [
+            iv.map_all_point,
+            iv.micro_ap_all_point,
+            iv.precision_at_operating.unwrap(),
+            iv.misses_per_sheet.unwrap(),
+        ] {
             assert_eq!(i.resamples_used + i.resamples_undefined, 300);
             assert!(i.lower.unwrap() <= i.upper.unwrap());
         }
@@ -745,20 +915,32 @@ mod tests {
 
     #[test]
     fn bad_input_is_named() {
-        let cfg = SheetEvalConfig { bootstrap: None, ..SheetEvalConfig::default() };
+        let cfg = SheetEvalConfig {
+            bootstrap: None,
+            ..SheetEvalConfig::default()
+        };
         let mut s = sheets();
         s[1].detections[1].class = "reducer".into();
         let msg = evaluate_sheets(&s, &names(), &cfg).unwrap_err().to_string();
-        assert!(msg.contains("sheet \"b\", detection #1") && msg.contains("reducer"), "{msg}");
+        assert!(
+            msg.contains("sheet \"b\", detection #1") && msg.contains("reducer"),
+            "{msg}"
+        );
         let mut s = sheets();
         s[1].detections[0].sheet = "a".into();
-        assert!(matches!(evaluate_sheets(&s, &names(), &cfg), Err(EvalError::WrongSheet { index: 0, .. })));
+        assert!(matches!(
+            evaluate_sheets(&s, &names(), &cfg),
+            Err(EvalError::WrongSheet { index: 0, .. })
+        ));
         let mut s = sheets();
         s[1].sheet = "a".into();
         for d in &mut s[1].detections {
             d.sheet = "a".into();
         }
-        assert!(matches!(evaluate_sheets(&s, &names(), &cfg), Err(EvalError::DuplicateSheet { .. })));
+        assert!(matches!(
+            evaluate_sheets(&s, &names(), &cfg),
+            Err(EvalError::DuplicateSheet { .. })
+        ));
         let mut s = sheets();
         s[0].detections[2].score = f64::NAN;
         let msg = evaluate_sheets(&s, &names(), &cfg).unwrap_err().to_string();
@@ -767,7 +949,10 @@ mod tests {
         s[0].truths[0].bbox.w = 0.0;
         assert!(evaluate_sheets(&s, &names(), &cfg).is_err());
         assert!(evaluate_sheets(&[], &names(), &cfg).is_err());
-        let bad = SheetEvalConfig { criterion: MatchCriterion::Iou { min_iou: 0.0 }, ..cfg };
+        let bad = SheetEvalConfig {
+            criterion: MatchCriterion::Iou { min_iou: 0.0 },
+            ..cfg
+        };
         assert!(evaluate_sheets(&sheets(), &names(), &bad).is_err());
     }
 }

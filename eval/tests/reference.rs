@@ -11,20 +11,24 @@
 use serde_json::Value;
 use symtrust_eval::bootstrap::quantile;
 use symtrust_eval::calibration::{calibration, fit_platt};
-use symtrust_eval::compare::{mcnemar, McNemarMethod};
+use symtrust_eval::compare::{McNemarMethod, mcnemar};
 use symtrust_eval::crop_eval::evaluate_crops;
-use symtrust_eval::sheet_eval::{evaluate_sheets, SheetEvalConfig, SheetInput, TruthSymbol};
-use symtrust_labels::detections::Detection;
+use symtrust_eval::sheet_eval::{SheetEvalConfig, SheetInput, TruthSymbol, evaluate_sheets};
 use symtrust_labels::BBox;
+use symtrust_labels::detections::Detection;
 
 fn reference() -> Value {
-    let path = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/reference/reference.json");
+    let path = concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/tests/reference/reference.json"
+    );
     let text = std::fs::read_to_string(path).unwrap_or_else(|e| panic!("{path}: {e}"));
     serde_json::from_str(&text).unwrap_or_else(|e| panic!("{path}: {e}"))
 }
 
 fn f(v: &Value) -> f64 {
-    v.as_f64().unwrap_or_else(|| panic!("expected a number, got {v}"))
+    v.as_f64()
+        .unwrap_or_else(|| panic!("expected a number, got {v}"))
 }
 
 fn opt(v: &Value) -> Option<f64> {
@@ -36,7 +40,10 @@ fn floats(v: &Value) -> Vec<f64> {
 }
 
 fn close(what: &str, got: f64, want: f64, tol: f64) {
-    assert!((got - want).abs() <= tol, "{what}: got {got}, reference {want} (tolerance {tol})");
+    assert!(
+        (got - want).abs() <= tol,
+        "{what}: got {got}, reference {want} (tolerance {tol})"
+    );
 }
 
 fn close_opt(what: &str, got: Option<f64>, want: Option<f64>, tol: f64) {
@@ -63,29 +70,77 @@ fn reference_file_names_its_library_versions() {
 fn crop_metrics_match_scikit_learn() {
     let r = reference();
     let c = &r["crops"];
-    let names: Vec<String> = c["classes"].as_array().unwrap().iter().map(|v| v.as_str().unwrap().to_string()).collect();
-    let truth: Vec<usize> = c["truth"].as_array().unwrap().iter().map(|v| v.as_u64().unwrap() as usize).collect();
+    let names: Vec<String> = c["classes"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_str().unwrap().to_string())
+        .collect();
+    let truth: Vec<usize> = c["truth"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_u64().unwrap() as usize)
+        .collect();
     let scores: Vec<Vec<f64>> = c["scores"].as_array().unwrap().iter().map(floats).collect();
     let e = evaluate_crops(&truth, &scores, &names).unwrap();
     let cm: Vec<Vec<u64>> = c["confusion_matrix"]
         .as_array()
         .unwrap()
         .iter()
-        .map(|row| row.as_array().unwrap().iter().map(|v| v.as_u64().unwrap()).collect())
+        .map(|row| {
+            row.as_array()
+                .unwrap()
+                .iter()
+                .map(|v| v.as_u64().unwrap())
+                .collect()
+        })
         .collect();
     assert_eq!(e.confusion.counts, cm, "confusion_matrix");
     for (k, want) in c["per_class"].as_array().unwrap().iter().enumerate() {
         let name = &names[k];
         let fig = &e.per_class[k];
-        assert_eq!(fig.support, want["support"].as_u64().unwrap(), "{name} support");
-        close_opt(&format!("{name} precision"), fig.precision, opt(&want["precision"]), 1e-12);
-        close_opt(&format!("{name} recall"), fig.recall, opt(&want["recall"]), 1e-12);
+        assert_eq!(
+            fig.support,
+            want["support"].as_u64().unwrap(),
+            "{name} support"
+        );
+        close_opt(
+            &format!("{name} precision"),
+            fig.precision,
+            opt(&want["precision"]),
+            1e-12,
+        );
+        close_opt(
+            &format!("{name} recall"),
+            fig.recall,
+            opt(&want["recall"]),
+            1e-12,
+        );
         close_opt(&format!("{name} f1"), fig.f1, opt(&want["f1"]), 1e-12);
         let ovr = &e.one_vs_rest[k];
-        close(&format!("{name} average_precision_score"), ovr.ap.step_sum.unwrap(), f(&want["average_precision_score"]), 1e-12);
-        close(&format!("{name} roc_auc_score"), ovr.roc_auc.unwrap(), f(&want["roc_auc_score"]), 1e-12);
-        let (t, p, rc) = (floats(&want["pr_thresholds"]), floats(&want["pr_precision"]), floats(&want["pr_recall"]));
-        assert_eq!(ovr.pr.points.len(), t.len(), "{name} precision_recall_curve length");
+        close(
+            &format!("{name} average_precision_score"),
+            ovr.ap.step_sum.unwrap(),
+            f(&want["average_precision_score"]),
+            1e-12,
+        );
+        close(
+            &format!("{name} roc_auc_score"),
+            ovr.roc_auc.unwrap(),
+            f(&want["roc_auc_score"]),
+            1e-12,
+        );
+        let (t, p, rc) = (
+            floats(&want["pr_thresholds"]),
+            floats(&want["pr_precision"]),
+            floats(&want["pr_recall"]),
+        );
+        assert_eq!(
+            ovr.pr.points.len(),
+            t.len(),
+            "{name} precision_recall_curve length"
+        );
         for (i, pt) in ovr.pr.points.iter().enumerate() {
             assert_eq!(pt.threshold, t[i], "{name} threshold #{i}");
             close(&format!("{name} precision #{i}"), pt.precision, p[i], 1e-12);
@@ -101,18 +156,46 @@ fn calibration_matches_scikit_learn() {
     let r = reference();
     let c = &r["calibration"];
     let s = floats(&c["scores"]);
-    let y: Vec<bool> = c["outcomes"].as_array().unwrap().iter().map(|v| v.as_bool().unwrap()).collect();
+    let y: Vec<bool> = c["outcomes"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_bool().unwrap())
+        .collect();
     let items: Vec<(f64, bool)> = s.into_iter().zip(y).collect();
     let cal = calibration(&items, c["n_bins"].as_u64().unwrap() as usize).unwrap();
-    close("brier_score_loss", cal.brier, f(&c["brier_score_loss"]), 1e-12);
+    close(
+        "brier_score_loss",
+        cal.brier,
+        f(&c["brier_score_loss"]),
+        1e-12,
+    );
     let nonempty: Vec<_> = cal.bins.iter().filter(|b| b.count > 0).collect();
-    let (pt, pp) = (floats(&c["calibration_curve_prob_true"]), floats(&c["calibration_curve_prob_pred"]));
-    let counts: Vec<u64> = c["bin_counts_nonempty"].as_array().unwrap().iter().map(|v| v.as_u64().unwrap()).collect();
+    let (pt, pp) = (
+        floats(&c["calibration_curve_prob_true"]),
+        floats(&c["calibration_curve_prob_pred"]),
+    );
+    let counts: Vec<u64> = c["bin_counts_nonempty"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_u64().unwrap())
+        .collect();
     assert_eq!(nonempty.len(), pt.len(), "non-empty bins");
     for (i, b) in nonempty.iter().enumerate() {
         assert_eq!(b.count, counts[i], "bin count #{i}");
-        close(&format!("prob_true #{i}"), b.observed.unwrap(), pt[i], 1e-12);
-        close(&format!("prob_pred #{i}"), b.mean_score.unwrap(), pp[i], 1e-12);
+        close(
+            &format!("prob_true #{i}"),
+            b.observed.unwrap(),
+            pt[i],
+            1e-12,
+        );
+        close(
+            &format!("prob_pred #{i}"),
+            b.mean_score.unwrap(),
+            pp[i],
+            1e-12,
+        );
     }
     close("ECE", cal.ece, f(&c["ece_from_calibration_curve"]), 1e-12);
 }
@@ -124,7 +207,12 @@ fn platt_scaling_matches_unpenalised_logistic_regression() {
     let r = reference();
     let c = &r["platt"];
     let s = floats(&c["scores"]);
-    let y: Vec<bool> = c["outcomes"].as_array().unwrap().iter().map(|v| v.as_bool().unwrap()).collect();
+    let y: Vec<bool> = c["outcomes"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_bool().unwrap())
+        .collect();
     let items: Vec<(f64, bool)> = s.into_iter().zip(y).collect();
     let fit = fit_platt(&items).unwrap();
     close("Platt slope", fit.a, f(&c["a"]), 1e-5);
@@ -137,7 +225,10 @@ fn platt_scaling_matches_unpenalised_logistic_regression() {
 fn mcnemar_matches_scipy() {
     let r = reference();
     for row in r["mcnemar"].as_array().unwrap() {
-        let (b, c) = (row["b"].as_u64().unwrap() as usize, row["c"].as_u64().unwrap() as usize);
+        let (b, c) = (
+            row["b"].as_u64().unwrap() as usize,
+            row["c"].as_u64().unwrap() as usize,
+        );
         // b crops only the champion gets right, c only the challenger, 3 both right.
         let mut champ = vec![true; b];
         champ.extend(vec![false; c]);
@@ -148,15 +239,32 @@ fn mcnemar_matches_scipy() {
         let exact = mcnemar(&champ, &chall, u64::MAX).unwrap();
         assert_eq!(exact.method, McNemarMethod::ExactBinomial);
         let want = f(&row["exact_p"]);
-        assert!((exact.p_value - want).abs() <= 1e-10 * want, "b={b} c={c}: exact {} vs scipy {want}", exact.p_value);
+        assert!(
+            (exact.p_value - want).abs() <= 1e-10 * want,
+            "b={b} c={c}: exact {} vs scipy {want}",
+            exact.p_value
+        );
         let chi = mcnemar(&champ, &chall, 0).unwrap();
         assert_eq!(chi.method, McNemarMethod::ChiSquareCorrected);
-        close(&format!("b={b} c={c} statistic"), chi.statistic.unwrap(), f(&row["chi2_statistic"]), 1e-12);
+        close(
+            &format!("b={b} c={c} statistic"),
+            chi.statistic.unwrap(),
+            f(&row["chi2_statistic"]),
+            1e-12,
+        );
         let want = f(&row["chi2_p"]);
-        assert!((chi.p_value - want).abs() <= 1e-10 * want, "b={b} c={c}: chi2 {} vs scipy {want}", chi.p_value);
+        assert!(
+            (chi.p_value - want).abs() <= 1e-10 * want,
+            "b={b} c={c}: chi2 {} vs scipy {want}",
+            chi.p_value
+        );
         // The default switch at 25 discordant crops picks one of the two.
         let auto = mcnemar(&champ, &chall, 25).unwrap();
-        let expect = if b + c < 25 { McNemarMethod::ExactBinomial } else { McNemarMethod::ChiSquareCorrected };
+        let expect = if b + c < 25 {
+            McNemarMethod::ExactBinomial
+        } else {
+            McNemarMethod::ChiSquareCorrected
+        };
         assert_eq!(auto.method, expect);
     }
 }
@@ -167,8 +275,16 @@ fn quantile_matches_numpy_percentile() {
     let r = reference();
     let q = &r["quantile"];
     let v = floats(&q["values"]);
-    for (level, want) in floats(&q["levels"]).into_iter().zip(floats(&q["numpy_percentile_linear"])) {
-        close(&format!("quantile {level}"), quantile(&v, level).unwrap(), want, 1e-12);
+    for (level, want) in floats(&q["levels"])
+        .into_iter()
+        .zip(floats(&q["numpy_percentile_linear"]))
+    {
+        close(
+            &format!("quantile {level}"),
+            quantile(&v, level).unwrap(),
+            want,
+            1e-12,
+        );
     }
 }
 
@@ -188,7 +304,10 @@ fn coco_sheets(c: &Value) -> Vec<SheetInput> {
                     .as_array()
                     .unwrap()
                     .iter()
-                    .map(|t| TruthSymbol { class: t["class"].as_str().unwrap().into(), bbox: bbox(&t["bbox"]) })
+                    .map(|t| TruthSymbol {
+                        class: t["class"].as_str().unwrap().into(),
+                        bbox: bbox(&t["bbox"]),
+                    })
                     .collect(),
                 detections: s["detections"]
                     .as_array()
@@ -224,20 +343,47 @@ fn coco_sheets(c: &Value) -> Vec<SheetInput> {
 fn sheet_ap_matches_cocoeval() {
     let r = reference();
     let c = &r["coco"];
-    let names: Vec<String> = c["classes"].as_array().unwrap().iter().map(|v| v.as_str().unwrap().to_string()).collect();
-    let cfg = SheetEvalConfig { bootstrap: None, ..SheetEvalConfig::default() };
+    let names: Vec<String> = c["classes"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_str().unwrap().to_string())
+        .collect();
+    let cfg = SheetEvalConfig {
+        bootstrap: None,
+        ..SheetEvalConfig::default()
+    };
     let e = evaluate_sheets(&coco_sheets(c), &names, &cfg).unwrap();
-    close("COCOeval stats[1]", e.map_101.unwrap(), f(&c["stats_1_ap50_101point"]), 1e-12);
+    close(
+        "COCOeval stats[1]",
+        e.map_101.unwrap(),
+        f(&c["stats_1_ap50_101point"]),
+        1e-12,
+    );
     let sweep = c["iou_sweep"].as_array().unwrap();
     let at_half = sweep[0]["per_class_ap101"].as_array().unwrap();
     for (k, want) in at_half.iter().enumerate() {
-        close_opt(&format!("{} AP101 at IoU 0.5", names[k]), e.per_class[k].figures.ap.points_101, opt(want), 1e-12);
+        close_opt(
+            &format!("{} AP101 at IoU 0.5", names[k]),
+            e.per_class[k].figures.ap.points_101,
+            opt(want),
+            1e-12,
+        );
     }
     // 'reducer' has detections but no ground truth: undefined, left out of the mean.
     assert_eq!(e.per_class[3].figures.ap.points_101, None);
     for row in sweep {
         let t = f(&row["min_iou"]);
-        let ours = e.iou_sweep.iter().find(|s| (s.min_iou - t).abs() < 1e-12).unwrap();
-        close(&format!("mAP101 at IoU {t}"), ours.map_101.unwrap(), f(&row["map101"]), 1e-12);
+        let ours = e
+            .iou_sweep
+            .iter()
+            .find(|s| (s.min_iou - t).abs() < 1e-12)
+            .unwrap();
+        close(
+            &format!("mAP101 at IoU {t}"),
+            ours.map_101.unwrap(),
+            f(&row["map101"]),
+            1e-12,
+        );
     }
 }

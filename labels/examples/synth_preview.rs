@@ -1,6 +1,6 @@
 //! Generates synthetic sheets, times them and writes previews under a folder
 //! (default `/tmp/synth-preview`): a downscaled whole sheet, a 1:1 crop around
-//! the first symbols, and one crop per labelled symbol.
+//! the first symbol, and one 120 px crop per labelled class (shown 3x).
 //!
 //! `cargo run -p symtrust-labels --release --example synth_preview -- [OUT] [SEED]`
 
@@ -21,7 +21,10 @@ fn main() {
         (DraftingStyle::B, Paper::A1, 7),
     ] {
         let cfg = SynthConfig::new(style, seed);
-        let clean_cfg = SynthConfig { degradation: Degradation::none(), ..cfg };
+        let clean_cfg = SynthConfig {
+            degradation: Degradation::none(),
+            ..cfg
+        };
         let t = Instant::now();
         let _ = generate_sheet(&clean_cfg, index, paper);
         let clean_secs = t.elapsed().as_secs_f64();
@@ -56,12 +59,18 @@ fn main() {
             crop.save(out.join(format!("{}-area.png", sheet.id)))
                 .expect("save");
         }
-        for (k, s) in sheet.symbols.iter().enumerate().take(12) {
+        let mut seen = std::collections::HashSet::new();
+        for s in &sheet.symbols {
+            if !seen.insert(s.class.clone()) {
+                continue;
+            }
             let (cx, cy) = s.bbox.center();
             let x = ((cx - 60.0).max(0.0) as u32).min(w - 120);
             let y = ((cy - 60.0).max(0.0) as u32).min(h - 120);
             let crop = image::imageops::crop_imm(&sheet.image, x, y, 120, 120).to_image();
-            crop.save(out.join(format!("{}-sym{k:02}-{}.png", sheet.id, s.class)))
+            let big =
+                image::imageops::resize(&crop, 360, 360, image::imageops::FilterType::Nearest);
+            big.save(out.join(format!("{}-{}.png", sheet.id, s.class)))
                 .expect("save");
         }
     }

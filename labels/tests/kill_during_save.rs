@@ -7,7 +7,9 @@ use std::io::{BufRead, BufReader};
 use std::path::Path;
 use std::process::{Command, Stdio};
 use std::time::{Duration, Instant};
-use symtrust_labels::document::{DpiSource, LabelDocument, Origin, ReviewState, SheetRecord, Symbol};
+use symtrust_labels::document::{
+    DpiSource, LabelDocument, Origin, ReviewState, SheetRecord, Symbol,
+};
 use symtrust_labels::geometry::BBox;
 use symtrust_labels::store::LabelStore;
 
@@ -48,7 +50,9 @@ fn child_writer() {
         return;
     };
     let store = LabelStore::at(Path::new(&dir));
-    let mut current = store.load("k1").unwrap_or_else(|_| store.save(&doc(), "writer").unwrap());
+    let mut current = store
+        .load("k1")
+        .unwrap_or_else(|_| store.save(&doc(), "writer").unwrap());
     loop {
         current.symbols[0].bbox.x = current.revision as f64;
         current = store.save(&current, "writer").unwrap();
@@ -64,7 +68,13 @@ fn kill_minus_nine_never_loses_an_acknowledged_save() {
     let mut last_ack = 0u64;
     for round in 0..12u64 {
         let mut child = Command::new(&exe)
-            .args(["--exact", "child_writer", "--ignored", "--nocapture", "--test-threads=1"])
+            .args([
+                "--exact",
+                "child_writer",
+                "--ignored",
+                "--nocapture",
+                "--test-threads=1",
+            ])
             .env(CHILD_ENV, dir.path())
             .stdout(Stdio::piped())
             .stderr(Stdio::null())
@@ -109,7 +119,13 @@ fn kill_minus_nine_never_loses_an_acknowledged_save() {
     store.save(&d, "cleaner").unwrap();
     let temps = std::fs::read_dir(dir.path())
         .unwrap()
-        .filter(|e| e.as_ref().unwrap().file_name().to_string_lossy().contains(".tmp-"))
+        .filter(|e| {
+            e.as_ref()
+                .unwrap()
+                .file_name()
+                .to_string_lossy()
+                .contains(".tmp-")
+        })
         .count();
     assert_eq!(temps, 0);
 }

@@ -6,3 +6,4 @@ pub mod init;
 pub mod labels;
 pub mod sheets;
 pub mod synth;
+pub mod train;

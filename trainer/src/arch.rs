@@ -88,7 +88,39 @@ impl Architecture {
             }
             side = (side - k + 1) / POOL;
         }
+        let unseen = self.unseen_margin();
+        if unseen > 0 {
+            let fits: Vec<usize> = (self.window.saturating_sub(12)..=self.window + 12)
+                .filter(|w| Self { window: *w, ..self.clone() }.unseen_margin() == 0)
+                .collect();
+            return bad(format!(
+                "with window {} the network never sees the last {unseen} pixel row(s) and column(s) of a window (pooling drops an odd edge); windows that fit this network nearby: {fits:?}",
+                self.window
+            ));
+        }
         Ok(())
+    }
+
+    /// Pixels at the right and bottom of a window that no feature depends on
+    /// (0 when every conv output before a pool has an even side).
+    pub fn unseen_margin(&self) -> usize {
+        let mut side = self.window;
+        let mut used = Vec::new();
+        for k in &self.conv_kernels {
+            if side < *k {
+                return self.window;
+            }
+            let conv = side - k + 1;
+            used.push((conv / POOL) * POOL);
+            side = conv / POOL;
+        }
+        // Walk back: pooled rows used -> conv rows used -> input rows used.
+        let mut rows = side;
+        for (k, pooled_conv) in self.conv_kernels.iter().zip(&used).rev() {
+            let conv_rows = (rows * POOL).min(*pooled_conv);
+            rows = conv_rows + k - 1;
+        }
+        self.window - rows
     }
 
     /// Number of convolution layers.
@@ -169,8 +201,8 @@ mod tests {
     }
 
     #[test]
-    fn odd_sides_drop_the_last_row_when_pooling() {
-        // 33 -3+1 = 31 -> 15 (floor).
+    fn odd_sides_drop_the_last_row_when_pooling_and_are_refused() {
+        // 33 -3+1 = 31 -> 15 (floor): conv row 30, so pixel 32, is never seen.
         let a = Architecture {
             window: 33,
             conv_channels: vec![4],
@@ -180,6 +212,15 @@ mod tests {
             classes: 2,
         };
         assert_eq!(a.feature_side(), 15);
+        assert_eq!(a.unseen_margin(), 1);
+        let err = a.validate().unwrap_err().to_string();
+        assert!(err.contains("32") && err.contains("34"), "{err}");
+        // Default network at 32 pixels: 28 -> 14 -> 10 -> 5 -> 3 -> 1. Back from the
+        // 1 x 1 map: conv3 rows 0-1, pool2 rows 0-3, conv2 rows 0-7, pool1 rows
+        // 0-11, conv1 rows 0-23, pixels 0-27: 4 never seen (hand calculation).
+        let d = Architecture { window: 32, ..default_arch() };
+        assert_eq!(d.unseen_margin(), 4);
+        assert_eq!(default_arch().unseen_margin(), 0);
     }
 
     #[test]

@@ -203,6 +203,31 @@ pub fn write_folder(parent: &Path, name: &str, files: &[(&str, Vec<u8>)]) -> Res
     Ok(target)
 }
 
+/// Removes `.writing-*` folders left in `models_dir` by writers that died
+/// (their process id no longer runs); returns how many were removed.
+pub fn remove_stale_writes(models_dir: &Path) -> Result<usize> {
+    let entries = match std::fs::read_dir(models_dir) {
+        Ok(e) => e,
+        Err(e) if e.kind() == std::io::ErrorKind::NotFound => return Ok(0),
+        Err(e) => return Err(TrainerError::io(models_dir, e)),
+    };
+    let mut removed = 0;
+    for entry in entries {
+        let entry = entry.map_err(|e| TrainerError::io(models_dir, e))?;
+        let name = entry.file_name().to_string_lossy().into_owned();
+        let Some(rest) = name.strip_prefix(".writing-") else {
+            continue;
+        };
+        let pid = rest.rsplit('-').next().unwrap_or("");
+        let alive = !pid.is_empty() && Path::new("/proc").join(pid).exists();
+        if !alive {
+            std::fs::remove_dir_all(entry.path()).map_err(|e| TrainerError::io(entry.path(), e))?;
+            removed += 1;
+        }
+    }
+    Ok(removed)
+}
+
 /// Reads and checks a model folder: the card parses, the weights' SHA-256
 /// matches it, and every tensor fits the architecture.
 pub fn load_model(dir: &Path) -> Result<(ModelCard, Network)> {
@@ -257,6 +282,10 @@ mod tests {
         let files = [("a", b"1".to_vec()), ("a", b"2".to_vec())];
         assert!(write_folder(dir.path(), "m1", &files).is_err());
         assert_eq!(std::fs::read_dir(dir.path()).unwrap().count(), 0);
+        std::fs::create_dir(dir.path().join(".writing-m0-4000000000")).unwrap();
+        std::fs::create_dir(dir.path().join(format!(".writing-m9-{}", std::process::id()))).unwrap();
+        assert_eq!(remove_stale_writes(dir.path()).unwrap(), 1, "only the dead writer's folder");
+        std::fs::remove_dir(dir.path().join(format!(".writing-m9-{}", std::process::id()))).unwrap();
         let ok = write_folder(dir.path(), "m2", &[("a", b"1".to_vec())]).unwrap();
         assert_eq!(std::fs::read(ok.join("a")).unwrap(), b"1");
         assert!(write_folder(dir.path(), "m2", &[("a", b"1".to_vec())]).is_err());

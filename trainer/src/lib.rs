@@ -29,3 +29,9 @@ pub use error::{Result, TrainerError};
 pub use infer::Classifier;
 pub use scoremap::{ScoreMap, ScoreMapOptions};
 pub use train::{TrainObserver, TrainOptions, TrainOutcome, train};
+
+/// Threads the CPU kernels and the score map use (rayon's pool; set
+/// `RAYON_NUM_THREADS` to change it).
+pub fn threads() -> usize {
+    rayon::current_num_threads()
+}

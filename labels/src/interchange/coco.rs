@@ -352,6 +352,33 @@ mod tests {
     }
 
     #[test]
+    fn every_truncation_is_an_error_with_a_position() {
+        let text = String::from_utf8(render(&[sample_doc()], &classes(), "n")).unwrap();
+        // The closing brace is the last byte before the newline: every shorter cut
+        // is incomplete JSON.
+        for cut in 0..text.trim_end().len() {
+            let err = parse(Path::new("c.json"), &text[..cut]).unwrap_err();
+            assert!(matches!(err, LabelError::Json { .. }), "cut {cut}: {err}");
+        }
+    }
+
+    proptest::proptest! {
+        #[test]
+        fn damaged_files_parse_or_name_the_file(flips in proptest::collection::vec((0usize..2000, proptest::prelude::any::<u8>()), 1..8)) {
+            let mut bytes = render(&[sample_doc()], &classes(), "n");
+            for (at, b) in flips {
+                let n = bytes.len();
+                bytes[at % n] = b;
+            }
+            if let Ok(text) = std::str::from_utf8(&bytes) {
+                if let Err(e) = parse(Path::new("c.json"), text) {
+                    proptest::prop_assert!(e.to_string().starts_with("c.json:"), "{}", e);
+                }
+            }
+        }
+    }
+
+    #[test]
     fn truncated_json_names_line_and_column() {
         let text = String::from_utf8(render(&[sample_doc()], &classes(), "n")).unwrap();
         let cut = &text[..text.len() * 2 / 3];

@@ -212,6 +212,30 @@ mod tests {
         assert_eq!(rows[0].1.state, ReviewState::Rejected);
     }
 
+    #[test]
+    fn every_truncation_parses_or_names_a_line() {
+        let text = render(&[row("s0001", 1.5), row("s0002", 2.0), row("s0003", 3.25)]);
+        for cut in 0..text.len() {
+            match parse(Path::new("t.csv"), &text[..cut]) {
+                Ok(rows) => assert!(rows.len() <= 3),
+                Err(LabelError::Csv { line, .. }) => assert!((1..=4).contains(&line), "cut {cut}"),
+                Err(e) => panic!("cut {cut}: {e}"),
+            }
+        }
+    }
+
+    proptest! {
+        #[test]
+        fn arbitrary_rows_parse_or_name_a_data_line(bytes in prop::collection::vec(any::<u8>(), 0..200)) {
+            let mut text = b"sheet,id,class,x,y,w,h,state\n".to_vec();
+            text.extend(bytes);
+            if let Err(e) = parse(Path::new("f.csv"), &text) {
+                prop_assert!(matches!(e, LabelError::Csv { line, .. } if line >= 2), "{}", e);
+                prop_assert!(e.to_string().starts_with("f.csv:"), "{}", e);
+            }
+        }
+    }
+
     fn arb_row() -> impl Strategy<Value = Row> {
         (
             "[a-z0-9_.-]{1,12}",

@@ -212,7 +212,7 @@ fn validate(
             }
             Some(Ok(doc)) => doc,
         };
-        if !classes.iter().any(|c| *c == row.class) {
+        if !classes.contains(&row.class) {
             return Err(at.error(
                 path,
                 format!(

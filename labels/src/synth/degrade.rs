@@ -101,72 +101,110 @@ pub(crate) fn distance_cap(a_px: f64) -> usize {
     ((9.2103 / a_px.max(1e-6)).sqrt().ceil() as usize).clamp(1, 15)
 }
 
-/// Squared distance of every pixel to the nearest pixel of the other colour,
-/// exact up to `cap`; farther pixels get `u8::MAX`.
-pub(crate) fn capped_distance_sq(m: &Mask, cap: usize) -> Vec<u8> {
+/// Scratch buffers for [`distance_row`].
+struct RowScratch {
+    /// Column distance to the nearest ink, padded by `cap` on both sides.
+    to_ink: Vec<u8>,
+    /// Column distance to the nearest paper, padded likewise.
+    to_paper: Vec<u8>,
+    /// Best squared distance to ink / to paper.
+    best_ink: Vec<u8>,
+    best_paper: Vec<u8>,
+}
+
+impl RowScratch {
+    fn new(w: usize, cap: usize) -> Self {
+        Self {
+            to_ink: vec![0; w + 2 * cap],
+            to_paper: vec![0; w + 2 * cap],
+            best_ink: vec![0; w],
+            best_paper: vec![0; w],
+        }
+    }
+}
+
+/// Squared distances of row `j` to the nearest other-colour pixel, exact up to
+/// `cap` (farther: `u8::MAX`), written into `out`. The column distance of each
+/// colour is the smallest `|dy| <= cap` at which that colour occurs; the row
+/// pass then takes `min dx^2 + col^2` over `|dx| <= cap` (separable, exact).
+fn distance_row(m: &Mask, j: usize, cap: usize, sc: &mut RowScratch, out: &mut [u8]) {
     let (w, h) = (m.width as usize, m.height as usize);
     let far = (cap + 1) as u8;
-    // Column distances to the nearest ink (ci) and to the nearest paper (cp).
-    let mut ci = vec![far; w * h];
-    let mut cp = vec![far; w * h];
-    for j in 0..h {
-        let row = &m.data[j * w..(j + 1) * w];
-        for i in 0..w {
-            let k = j * w + i;
-            let (pi, pp) = if j > 0 {
-                (ci[k - w], cp[k - w])
+    sc.to_ink.fill(far);
+    sc.to_paper.fill(far);
+    for dy in (0..=cap).rev() {
+        let d = dy as u8;
+        for y in [j.checked_sub(dy), (j + dy < h).then_some(j + dy)]
+            .into_iter()
+            .flatten()
+        {
+            let row = &m.data[y * w..(y + 1) * w];
+            let ti = &mut sc.to_ink[cap..cap + w];
+            let tp = &mut sc.to_paper[cap..cap + w];
+            for ((a, b), &v) in ti.iter_mut().zip(tp.iter_mut()).zip(row) {
+                let ink = v != 0;
+                *a = if ink { (*a).min(d) } else { *a };
+                *b = if ink { *b } else { (*b).min(d) };
+            }
+        }
+    }
+    let big = u8::MAX;
+    sc.best_ink.fill(big);
+    sc.best_paper.fill(big);
+    for dx in 0..=2 * cap {
+        let off = (dx as i64 - cap as i64).unsigned_abs() as u16;
+        let dx2 = off * off;
+        let ti = &sc.to_ink[dx..dx + w];
+        let tp = &sc.to_paper[dx..dx + w];
+        for k in 0..w {
+            let gi = u16::from(ti[k]);
+            let gp = u16::from(tp[k]);
+            let ci = if ti[k] < far {
+                (dx2 + gi * gi).min(254) as u8
             } else {
-                (far, far)
+                big
             };
-            if row[i] != 0 {
-                ci[k] = 0;
-                cp[k] = pp.saturating_add(1).min(far);
+            let cp = if tp[k] < far {
+                (dx2 + gp * gp).min(254) as u8
             } else {
-                cp[k] = 0;
-                ci[k] = pi.saturating_add(1).min(far);
-            }
+                big
+            };
+            sc.best_ink[k] = sc.best_ink[k].min(ci);
+            sc.best_paper[k] = sc.best_paper[k].min(cp);
         }
     }
-    for j in (0..h.saturating_sub(1)).rev() {
-        for i in 0..w {
-            let k = j * w + i;
-            ci[k] = ci[k].min(ci[k + w].saturating_add(1).min(far));
-            cp[k] = cp[k].min(cp[k + w].saturating_add(1).min(far));
-        }
+    let cap2 = (cap * cap) as u8;
+    let row = &m.data[j * w..(j + 1) * w];
+    for k in 0..w {
+        let v = if row[k] != 0 {
+            sc.best_paper[k]
+        } else {
+            sc.best_ink[k]
+        };
+        out[k] = if v <= cap2 { v } else { big };
     }
-    let cap2 = (cap * cap) as u32;
-    let mut out = vec![u8::MAX; w * h];
-    out.par_chunks_mut(w).enumerate().for_each(|(j, orow)| {
-        let row = &m.data[j * w..(j + 1) * w];
-        let cir = &ci[j * w..(j + 1) * w];
-        let cpr = &cp[j * w..(j + 1) * w];
-        for i in 0..w {
-            let other = if row[i] != 0 { cpr } else { cir };
-            let lo = i.saturating_sub(cap);
-            let hi = (i + cap).min(w - 1);
-            let mut best = u32::MAX;
-            for (x, &g) in other.iter().enumerate().take(hi + 1).skip(lo) {
-                if g < far {
-                    let dx = x.abs_diff(i) as u32;
-                    best = best.min(dx * dx + u32::from(g) * u32::from(g));
-                }
-            }
-            if best <= cap2 {
-                orow[i] = best as u8;
-            }
-        }
-    });
+}
+
+/// Squared distance of every pixel to the nearest pixel of the other colour,
+/// exact up to `cap`; farther pixels get `u8::MAX`.
+#[cfg(test)]
+pub(crate) fn capped_distance_sq(m: &Mask, cap: usize) -> Vec<u8> {
+    let w = m.width as usize;
+    let mut out = vec![u8::MAX; w * m.height as usize];
+    out.par_chunks_mut(w).enumerate().for_each_init(
+        || RowScratch::new(w, cap),
+        |sc, (j, orow)| distance_row(m, j, cap, sc, orow),
+    );
     out
 }
 
-/// Kanungo flips of a binary mask (in place), closing excluded.
-fn kanungo_flip(m: &mut Mask, d: &Degradation, dpi: f64, seed: u64) {
+/// Kanungo flips of a binary mask, closing excluded. Pixels far from any edge
+/// flip with probability `eta` only; the gaps between such flips are drawn as
+/// geometric jumps, so the random stream is spent on edge pixels.
+fn kanungo_flip(m: &Mask, d: &Degradation, dpi: f64, seed: u64) -> Mask {
     let scale = (200.0 / dpi).powi(2);
     let (a_px, b_px) = (d.alpha * scale, d.beta * scale);
     let cap = distance_cap(a_px.min(b_px));
-    let tt = std::time::Instant::now();
-    let d2 = capped_distance_sq(m, cap);
-    eprintln!("T dist {:?}", tt.elapsed());
     let table = |amp: f64, decay: f64| -> Vec<f64> {
         (0..=cap * cap)
             .map(|k| amp * (-decay * k as f64).exp() + d.eta)
@@ -174,22 +212,43 @@ fn kanungo_flip(m: &mut Mask, d: &Degradation, dpi: f64, seed: u64) {
     };
     let (p_ink, p_paper) = (table(d.alpha0, a_px), table(d.beta0, b_px));
     let w = m.width as usize;
-    m.data.par_chunks_mut(w).enumerate().for_each(|(j, row)| {
-        let mut rng = SeededRng::derive(seed, &format!("kanungo/{j}"));
-        let drow = &d2[j * w..(j + 1) * w];
-        for (v, &dd) in row.iter_mut().zip(drow) {
-            let p = if dd == u8::MAX {
-                d.eta
-            } else if *v != 0 {
-                p_ink[dd as usize]
-            } else {
-                p_paper[dd as usize]
+    let log_keep = (1.0 - d.eta).ln();
+    let mut out = m.clone();
+    out.data.par_chunks_mut(w).enumerate().for_each_init(
+        || (RowScratch::new(w, cap), vec![0u8; w]),
+        |(sc, d2), (j, row)| {
+            distance_row(m, j, cap, sc, d2);
+            let mut rng = SeededRng::derive(seed, &format!("kanungo/{j}"));
+            let gap = |rng: &mut SeededRng| -> u64 {
+                if d.eta <= 0.0 {
+                    u64::MAX
+                } else {
+                    ((1.0 - rng.uniform()).ln() / log_keep).floor().min(1e18) as u64
+                }
             };
-            if rng.uniform() < p {
-                *v ^= 1;
+            let mut skip = gap(&mut rng);
+            for (v, &dd) in row.iter_mut().zip(d2.iter()) {
+                if dd == u8::MAX {
+                    if skip == 0 {
+                        *v ^= 1;
+                        skip = gap(&mut rng);
+                    } else {
+                        skip -= 1;
+                    }
+                } else {
+                    let p = if *v != 0 {
+                        p_ink[dd as usize]
+                    } else {
+                        p_paper[dd as usize]
+                    };
+                    if rng.uniform() < p {
+                        *v ^= 1;
+                    }
+                }
             }
-        }
-    });
+        },
+    );
+    out
 }
 
 /// Binary closing with a `k x k` square (dilation over offsets `0..k` backwards,
@@ -212,17 +271,19 @@ fn pass(m: &Mask, k: usize, dilate: bool) -> Mask {
             (x, (x + k - 1).min(n - 1))
         }
     };
-    let mut horiz = vec![0u8; w * h];
+    let mut horiz = m.data.clone();
     horiz.par_chunks_mut(w).enumerate().for_each(|(j, out)| {
         let row = &m.data[j * w..(j + 1) * w];
-        for (i, o) in out.iter_mut().enumerate() {
-            let (a, b) = window(i, w);
-            let s = &row[a..=b];
-            *o = if dilate {
-                *s.iter().max().unwrap()
+        for a in 1..k.min(w) {
+            if dilate {
+                for (o, s) in out[a..].iter_mut().zip(&row[..w - a]) {
+                    *o = (*o).max(*s);
+                }
             } else {
-                *s.iter().min().unwrap()
-            };
+                for (o, s) in out[..w - a].iter_mut().zip(&row[a..]) {
+                    *o = (*o).min(*s);
+                }
+            }
         }
     });
     let mut data = vec![0u8; w * h];
@@ -262,17 +323,24 @@ fn blur(img: &mut [u8], w: usize, h: usize, sigma: f64) {
         .collect();
     let norm: u32 = wts.iter().sum();
     let mut tmp = vec![0u8; w * h];
-    tmp.par_chunks_mut(w).enumerate().for_each(|(j, out)| {
-        let row = &img[j * w..(j + 1) * w];
-        for (i, o) in out.iter_mut().enumerate() {
-            let mut acc = 0u32;
+    tmp.par_chunks_mut(w).enumerate().for_each_init(
+        || (vec![0u8; w + 2 * rad], vec![0u32; w]),
+        |(pad, acc), (j, out)| {
+            let row = &img[j * w..(j + 1) * w];
+            pad[..rad].fill(row[0]);
+            pad[rad..rad + w].copy_from_slice(row);
+            pad[rad + w..].fill(row[w - 1]);
+            acc.fill(0);
             for (k, wt) in wts.iter().enumerate() {
-                let x = (i + k).saturating_sub(rad).min(w - 1);
-                acc += wt * u32::from(row[x]);
+                for (a, p) in acc.iter_mut().zip(&pad[k..k + w]) {
+                    *a += wt * u32::from(*p);
+                }
             }
-            *o = ((acc + norm / 2) / norm) as u8;
-        }
-    });
+            for (o, a) in out.iter_mut().zip(acc.iter()) {
+                *o = ((a + norm / 2) / norm) as u8;
+            }
+        },
+    );
     img.par_chunks_mut(w).enumerate().for_each(|(j, out)| {
         let mut acc = vec![0u32; w];
         for (k, wt) in wts.iter().enumerate() {
@@ -312,30 +380,56 @@ pub(crate) fn rotate_box(b: &BBox, theta: f64, c: (f64, f64)) -> BBox {
 }
 
 /// Bilinear rotation of a grey buffer about its centre; outside is paper (255).
+/// Source coordinates advance by a constant step along a row, in fixed point
+/// with 24 fractional bits (drift under 0.001 px across an A0 row).
 fn rotate(img: &[u8], w: usize, h: usize, theta: f64) -> Vec<u8> {
+    const BITS: i64 = 24;
+    const ONE: i64 = 1 << BITS;
     let c = (w as f64 / 2.0, h as f64 / 2.0);
     let (s, co) = (-theta).sin_cos();
     let mut out = vec![255u8; w * h];
     out.par_chunks_mut(w).enumerate().for_each(|(j, orow)| {
         let py = j as f64 + 0.5 - c.1;
-        for (i, o) in orow.iter_mut().enumerate() {
-            let px = i as f64 + 0.5 - c.0;
-            let sx = c.0 + co * px - s * py - 0.5;
-            let sy = c.1 + s * px + co * py - 0.5;
-            let (x0, y0) = (sx.floor(), sy.floor());
-            let (fx, fy) = (sx - x0, sy - y0);
-            let get = |x: f64, y: f64| -> f64 {
-                if x < 0.0 || y < 0.0 || x >= w as f64 || y >= h as f64 {
-                    255.0
+        let px0 = 0.5 - c.0;
+        let mut sx = ((c.0 + co * px0 - s * py - 0.5) * ONE as f64).round() as i64;
+        let mut sy = ((c.1 + s * px0 + co * py - 0.5) * ONE as f64).round() as i64;
+        let (stx, sty) = (
+            (co * ONE as f64).round() as i64,
+            (s * ONE as f64).round() as i64,
+        );
+        let get = |x: i64, y: i64| -> i64 {
+            if x < 0 || y < 0 || x >= w as i64 || y >= h as i64 {
+                255
+            } else {
+                i64::from(img[y as usize * w + x as usize])
+            }
+        };
+        for o in orow.iter_mut() {
+            let (x0, y0) = (sx >> BITS, sy >> BITS);
+            let (fx, fy) = (sx & (ONE - 1), sy & (ONE - 1));
+            let (p00, p10, p01, p11) =
+                if x0 >= 0 && y0 >= 0 && x0 + 1 < w as i64 && y0 + 1 < h as i64 {
+                    let k = y0 as usize * w + x0 as usize;
+                    (
+                        i64::from(img[k]),
+                        i64::from(img[k + 1]),
+                        i64::from(img[k + w]),
+                        i64::from(img[k + w + 1]),
+                    )
                 } else {
-                    f64::from(img[y as usize * w + x as usize])
-                }
-            };
-            let v = get(x0, y0) * (1.0 - fx) * (1.0 - fy)
-                + get(x0 + 1.0, y0) * fx * (1.0 - fy)
-                + get(x0, y0 + 1.0) * (1.0 - fx) * fy
-                + get(x0 + 1.0, y0 + 1.0) * fx * fy;
-            *o = v.round().clamp(0.0, 255.0) as u8;
+                    (
+                        get(x0, y0),
+                        get(x0 + 1, y0),
+                        get(x0, y0 + 1),
+                        get(x0 + 1, y0 + 1),
+                    )
+                };
+            let top = p00 * (ONE - fx) + p10 * fx;
+            let bot = p01 * (ONE - fx) + p11 * fx;
+            let v = (top * (ONE - fy) + bot * fy + (1 << (2 * BITS - 1))) >> (2 * BITS);
+            *o = v.clamp(0, 255) as u8;
+            sx += stx;
+            sy += sty;
         }
     });
     out
@@ -344,19 +438,23 @@ fn rotate(img: &[u8], w: usize, h: usize, theta: f64) -> Vec<u8> {
 /// Maps 0..255 onto ink..paper levels and adds grey noise.
 fn paper_and_noise(img: &mut [u8], w: usize, d: &Degradation, seed: u64) {
     let span = (d.paper_level - d.ink_level) / 255.0;
+    let level: Vec<f32> = (0..256)
+        .map(|v| (d.ink_level + span * f64::from(v)) as f32)
+        .collect();
+    // Irwin-Hall: the sum of four uniform 16-bit words, standardised
+    // (mean 4 * 65535 / 2, standard deviation 65536 * sqrt(4 / 12)).
+    let k = (d.noise_sd / 37_837.0) as f32;
     img.par_chunks_mut(w).enumerate().for_each(|(j, row)| {
         let mut rng = SeededRng::derive(seed, &format!("paper/{j}"));
         for v in row.iter_mut() {
-            let mut n = 0.0;
-            if d.noise_sd > 0.0 {
-                // Irwin-Hall: the sum of four uniform 16-bit words, standardised.
+            let n = if d.noise_sd > 0.0 {
                 let r = rng.next_u64();
-                let sum: u64 = (0..4).map(|k| (r >> (16 * k)) & 0xffff).sum();
-                n = (sum as f64 - 131_070.0) / 37_837.0 * d.noise_sd;
-            }
-            *v = (d.ink_level + span * f64::from(*v) + n)
-                .round()
-                .clamp(0.0, 255.0) as u8;
+                let sum = (r & 0xffff) + ((r >> 16) & 0xffff) + ((r >> 32) & 0xffff) + (r >> 48);
+                (sum as f32 - 131_070.0) * k
+            } else {
+                0.0
+            };
+            *v = (level[*v as usize] + n).round().clamp(0.0, 255.0) as u8;
         }
     });
 }
@@ -376,32 +474,27 @@ pub(crate) fn degrade(
         0.0
     };
     let (w, h) = (mask.width as usize, mask.height as usize);
-    let t0 = std::time::Instant::now();
-    let mut m = mask.clone();
-    if d.flips() {
-        kanungo_flip(&mut m, d, dpi, flip_seed);
-    }
-    eprintln!("T flip {:?}", t0.elapsed());
+    let mut m = if d.flips() {
+        kanungo_flip(mask, d, dpi, flip_seed)
+    } else {
+        mask.clone()
+    };
     let k = ((d.closing as f64) * dpi / 200.0).round() as usize;
     if k > 1 {
         m = closing(&m, k);
     }
-    eprintln!("T close {:?}", t0.elapsed());
     let mut grey: Vec<u8> = m
         .data
         .iter()
         .map(|v| if *v != 0 { 0 } else { 255 })
         .collect();
     blur(&mut grey, w, h, d.blur_sigma * dpi / 200.0);
-    eprintln!("T blur {:?}", t0.elapsed());
     if theta != 0.0 {
         grey = rotate(&grey, w, h, theta);
     }
-    eprintln!("T rot {:?}", t0.elapsed());
     if d.ink_level != 0.0 || d.paper_level != 255.0 || d.noise_sd > 0.0 {
         paper_and_noise(&mut grey, w, d, noise_seed);
     }
-    eprintln!("T noise {:?}", t0.elapsed());
     let img = GrayImage::from_raw(mask.width, mask.height, grey).expect("buffer matches size");
     (img, theta)
 }

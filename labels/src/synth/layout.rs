@@ -228,7 +228,12 @@ impl Builder<'_> {
         }
     }
 
+    /// A thin solid line (instrument process connection); its first point is a
+    /// tap on a process line or vessel, kept clear of inline shapes.
     fn thin_line(&mut self, pts: &[(f64, f64)], lw: f64) {
+        if let Some(p) = pts.first() {
+            self.objects.push(BBox::centered(p.0, p.1, 5.0, 5.0));
+        }
         let mut prims = Vec::new();
         self.g().polyline(pts, lw, &mut prims);
         self.push(prims);
@@ -342,10 +347,9 @@ impl Builder<'_> {
                 prims.push(self.g().seg((xt, f.y - 5.0), (xt, f.y), st.thin_mm));
             }
         }
-        let letters: Vec<char> = "ABCDEFGHJKLMNPQRSTUVWXYZ".chars().collect();
-        for k in 0..ny.min(letters.len()) {
+        for (k, letter) in "ABCDEFGHJKLMNPQRSTUVWXYZ".chars().take(ny).enumerate() {
             let y = f.y + f.h * (k as f64 + 0.5) / ny as f64;
-            let l = letters[k].to_string();
+            let l = letter.to_string();
             font::text(
                 &self.g(),
                 &l,
@@ -842,16 +846,10 @@ impl Builder<'_> {
                 .iter()
                 .flat_map(|dx| [0.0, -8.0, 8.0].map(|dy| (t_hi.0 + dx, ty + dy)))
                 .collect();
-            let cls = if self.rng.chance(0.8) {
-                Class::BubbleField
-            } else {
-                Class::BubbleBoard
-            };
-            let letters = if cls == Class::BubbleField {
-                "LT"
-            } else {
-                "LI"
-            };
+            // A transmitter, or sometimes a local level gauge (no loop follows).
+            let gauge = self.rng.chance(0.2);
+            let cls = Class::BubbleField;
+            let letters = if gauge { "LG" } else { "LT" };
             let number = self.next_loop();
             if let Some((c, idx)) = self.bubble(cls, letters, number, &cands) {
                 let xm = t_hi.0 + 4.0;
@@ -860,7 +858,7 @@ impl Builder<'_> {
                     st.signal_line_mm,
                 );
                 self.thin_line(&[t_lo, (xm, t_lo.1), (xm, c.1)], st.signal_line_mm);
-                if cls == Class::BubbleField {
+                if !gauge {
                     transmitter = Some((c, idx, 'L', number));
                 }
             }
@@ -1332,12 +1330,11 @@ impl Builder<'_> {
                     .any(|s| overlaps(&s.bbox.scaled(1.0 / self.s), bx))
             };
             if clear(&horiz) && clear(&vert) && syms_clear(&horiz) && syms_clear(&vert) {
-                let mut prims = Vec::new();
-                prims.push(self.g().seg((x0, y), (x1, y), st.thin_mm));
-                prims.push(
+                let prims = vec![
+                    self.g().seg((x0, y), (x1, y), st.thin_mm),
                     self.g()
                         .seg((xc, y - gap + 0.4), (xc, y + 10.0), st.thin_mm),
-                );
+                ];
                 self.push(prims);
                 self.objects.push(horiz);
                 self.objects.push(vert);

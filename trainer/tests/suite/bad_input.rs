@@ -52,7 +52,7 @@ fn a_window_that_does_not_match_is_refused() {
 
     let data = Dataset::load(&dir, &classes(), WINDOW).unwrap();
     let mut arch = tiny_arch(4);
-    arch.window = 32;
+    arch.window = 30;
     let err = train(&data, &arch, &quick(), None, false, &mut Silent).unwrap_err();
     assert!(matches!(err, TrainerError::WindowMismatch { .. }), "{err}");
 

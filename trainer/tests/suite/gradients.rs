@@ -11,7 +11,7 @@ use symtrust_trainer::train::weighted_loss;
 #[test]
 fn backward_matches_finite_differences() {
     let arch = Architecture {
-        window: 12,
+        window: 14,
         conv_channels: vec![2, 3],
         conv_kernels: vec![3, 3],
         hidden: 4,
@@ -21,8 +21,8 @@ fn backward_matches_finite_differences() {
     let net = Network::init(&arch, 21, DType::F64).unwrap();
     let mut rng = SeededRng::new(22);
     let n = 3;
-    let px: Vec<f64> = (0..n * 144).map(|_| rng.uniform()).collect();
-    let x = Tensor::from_vec(px, (n, 1, 12, 12), &Device::Cpu).unwrap();
+    let px: Vec<f64> = (0..n * 196).map(|_| rng.uniform()).collect();
+    let x = Tensor::from_vec(px, (n, 1, 14, 14), &Device::Cpu).unwrap();
     let labels = [0usize, 2, 1];
     let weights = [1.0, 0.5, 2.0];
     let loss = |net: &Network| -> f64 {

@@ -14,7 +14,7 @@ use symtrust_labels::site::{ClassSpec, ModelSettings};
 use symtrust_trainer::Architecture;
 
 /// Window of the test libraries.
-pub const WINDOW: u32 = 24;
+pub const WINDOW: u32 = 22;
 
 /// The test site's classes.
 pub fn classes() -> Vec<ClassSpec> {
@@ -29,7 +29,7 @@ pub fn classes() -> Vec<ClassSpec> {
         .collect()
 }
 
-/// A tiny network for the test window: 24 -3+1 = 22 -> 11 -3+1 = 9 -> 4.
+/// A tiny network for the test window: 22 -3+1 = 20 -> 10 -3+1 = 8 -> 4.
 pub fn tiny_arch(classes: usize) -> Architecture {
     let settings = ModelSettings {
         conv_channels: vec![6, 8],

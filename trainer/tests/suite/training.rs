@@ -69,7 +69,9 @@ fn learns_the_test_symbols_reproducibly_and_writes_a_checked_model() {
     let log = std::fs::read_to_string(folder.join(LOG_FILE)).unwrap();
     assert_eq!(log.lines().count(), 9, "header plus one row per epoch");
     let (loaded_card, net) = load_model(&folder).unwrap();
-    assert_eq!(loaded_card, card);
+    assert_eq!((&loaded_card.id, &loaded_card.weights_sha256), (&card.id, &card.weights_sha256));
+    assert_eq!(loaded_card.architecture, card.architecture);
+    assert!((loaded_card.validation.macro_f1 - card.validation.macro_f1).abs() < 1e-12);
     assert_eq!(weights_bytes(&net).unwrap(), weights_bytes(&a.network).unwrap());
 
     // The loaded model agrees with the validation figure on the validation crops.
