@@ -29,7 +29,7 @@
 use crate::ap::{ApFigures, mean_defined};
 use crate::bootstrap::{BootstrapConfig, Interval, interval_from, resample_indices};
 use crate::error::{EvalError, Result, in_range};
-use crate::sheet_eval::{SheetOutcomes, pooled_curve};
+use crate::sheets::{SheetOutcomes, pooled_curve};
 use crate::special::{binomial_half_cdf, chi2_sf_1dof};
 use serde::{Deserialize, Serialize};
 

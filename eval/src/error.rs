@@ -80,7 +80,7 @@ pub enum EvalError {
     SheetsDiffer {
         /// Position in the sheet lists.
         position: usize,
-        /// Sheet id on the champion side ("<none>" when the list is shorter).
+        /// Sheet id on the champion side (`<none>` when the list is shorter).
         left: String,
         /// Sheet id on the challenger side.
         right: String,

@@ -28,6 +28,7 @@ pub mod peaks;
 pub mod pr;
 pub mod roc;
 pub mod sheet_eval;
+pub mod sheets;
 pub mod special;
 
 pub use error::{EvalError, Result};

@@ -1,6 +1,6 @@
 //! Sheet-level evaluation: the figures an auditor reads.
 //!
-//! 1. [`prepare_sheets`] checks every box, score and class, and drops ground
+//! 1. [`prepare_sheets`] ([`crate::sheets`]) checks every box, score and class, and drops ground
 //!    truth and detections whose box centre lies in one of the sheet's ignore
 //!    regions.
 //! 2. [`sheet_outcomes`] matches each sheet on its own ([`crate::matching`]):
@@ -34,221 +34,15 @@ use crate::bootstrap::{BootstrapConfig, Interval, interval_from, resample_indice
 use crate::calibration::{Calibration, calibration};
 use crate::confusion::{ConfusionTable, add_sheet_to_detection_table, empty_detection_table};
 use crate::error::{EvalError, Result, in_range, setting};
-use crate::matching::{ClassedBox, MatchCriterion, ScoredBox, match_sheet, outside_ignore};
+use crate::matching::MatchCriterion;
 use crate::operating::{OperatingPoint, f1_max, precision_at_recall, recall_at_precision};
-use crate::pr::{PrCurve, f1, pr_curve};
+use crate::pr::{PrCurve, f1};
 use serde::{Deserialize, Serialize};
-use std::collections::HashSet;
-use symtrust_labels::BBox;
-use symtrust_labels::detections::Detection;
 
-/// A ground-truth symbol as evaluation needs it.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-pub struct TruthSymbol {
-    /// Class name.
-    pub class: String,
-    /// Box in sheet pixels.
-    pub bbox: BBox,
-}
-
-/// One held-out sheet: its ground truth, its detections and its ignore regions.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-pub struct SheetInput {
-    /// Sheet id.
-    pub sheet: String,
-    /// Accepted ground-truth symbols.
-    pub truths: Vec<TruthSymbol>,
-    /// The detector's output on this sheet.
-    pub detections: Vec<Detection>,
-    /// Regions (legend, title block) excluded from evaluation.
-    pub ignore: Vec<BBox>,
-}
-
-/// A sheet after checking, class lookup and ignore filtering.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-pub struct PreparedSheet {
-    /// Sheet id.
-    pub sheet: String,
-    /// Ground truth outside the ignore regions.
-    pub truths: Vec<ClassedBox>,
-    /// Detections outside the ignore regions.
-    pub dets: Vec<ScoredBox>,
-    /// Ground truth dropped by ignore regions.
-    pub ignored_truths: u64,
-    /// Detections dropped by ignore regions.
-    pub ignored_detections: u64,
-}
-
-fn class_index(what: impl Fn() -> String, class: &str, names: &[String]) -> Result<usize> {
-    names
-        .iter()
-        .position(|n| n == class)
-        .ok_or_else(|| EvalError::UnknownClass {
-            what: what(),
-            class: class.to_string(),
-            known: names.to_vec(),
-        })
-}
-
-fn check_box(what: &dyn Fn() -> String, b: &BBox) -> Result<()> {
-    for v in [b.x, b.y, b.w, b.h] {
-        crate::error::finite(what, v)?;
-    }
-    if b.w <= 0.0 || b.h <= 0.0 {
-        return Err(EvalError::OutOfRange {
-            what: format!("{}: box size must be positive", what()),
-            value: b.w.min(b.h),
-            lo: f64::MIN_POSITIVE,
-            hi: f64::MAX,
-        });
-    }
-    Ok(())
-}
-
-/// Checks every sheet and applies its ignore regions (see the module comment).
-pub fn prepare_sheets(sheets: &[SheetInput], class_names: &[String]) -> Result<Vec<PreparedSheet>> {
-    if class_names.is_empty() {
-        return Err(EvalError::Empty {
-            what: "class list".into(),
-        });
-    }
-    let mut seen = HashSet::new();
-    let mut out = Vec::with_capacity(sheets.len());
-    for s in sheets {
-        if !seen.insert(s.sheet.as_str()) {
-            return Err(EvalError::DuplicateSheet {
-                sheet: s.sheet.clone(),
-            });
-        }
-        for (i, r) in s.ignore.iter().enumerate() {
-            check_box(&|| format!("sheet {:?}, ignore region #{i}", s.sheet), r)?;
-        }
-        let mut p = PreparedSheet {
-            sheet: s.sheet.clone(),
-            truths: Vec::new(),
-            dets: Vec::new(),
-            ignored_truths: 0,
-            ignored_detections: 0,
-        };
-        for (i, t) in s.truths.iter().enumerate() {
-            let what = || format!("sheet {:?}, ground-truth symbol #{i}", s.sheet);
-            check_box(&what, &t.bbox)?;
-            let class = class_index(what, &t.class, class_names)?;
-            if outside_ignore(&t.bbox, &s.ignore) {
-                p.truths.push(ClassedBox {
-                    class,
-                    bbox: t.bbox,
-                });
-            } else {
-                p.ignored_truths += 1;
-            }
-        }
-        for (i, d) in s.detections.iter().enumerate() {
-            if d.sheet != s.sheet {
-                return Err(EvalError::WrongSheet {
-                    sheet: s.sheet.clone(),
-                    index: i,
-                    found: d.sheet.clone(),
-                });
-            }
-            let what = || format!("sheet {:?}, detection #{i}", s.sheet);
-            check_box(&what, &d.bbox())?;
-            in_range(
-                || format!("sheet {:?}, detection #{i}, score", s.sheet),
-                d.score,
-                0.0,
-                1.0,
-            )?;
-            let class = class_index(what, &d.class, class_names)?;
-            if outside_ignore(&d.bbox(), &s.ignore) {
-                p.dets.push(ScoredBox {
-                    class,
-                    score: d.score,
-                    bbox: d.bbox(),
-                });
-            } else {
-                p.ignored_detections += 1;
-            }
-        }
-        out.push(p);
-    }
-    Ok(out)
-}
-
-/// One matched detection.
-#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
-pub struct Outcome {
-    /// Class index.
-    pub class: usize,
-    /// Score.
-    pub score: f64,
-    /// Found a symbol of its class.
-    pub true_positive: bool,
-    /// A false positive on a symbol already found.
-    pub duplicate: bool,
-}
-
-/// The matching result of one sheet, all a metric needs.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-pub struct SheetOutcomes {
-    /// Sheet id.
-    pub sheet: String,
-    /// Ground-truth count per class.
-    pub truths_per_class: Vec<u64>,
-    /// One entry per detection.
-    pub outcomes: Vec<Outcome>,
-}
-
-/// Matches one prepared sheet.
-pub fn sheet_outcomes(
-    p: &PreparedSheet,
-    n_classes: usize,
-    criterion: &MatchCriterion,
-) -> SheetOutcomes {
-    let a = match_sheet(&p.truths, &p.dets, criterion);
-    let mut truths_per_class = vec![0; n_classes];
-    for t in &p.truths {
-        truths_per_class[t.class] += 1;
-    }
-    let outcomes = p
-        .dets
-        .iter()
-        .enumerate()
-        .map(|(i, d)| Outcome {
-            class: d.class,
-            score: d.score,
-            true_positive: a.det_truth[i].is_some(),
-            duplicate: a.duplicate[i],
-        })
-        .collect();
-    SheetOutcomes {
-        sheet: p.sheet.clone(),
-        truths_per_class,
-        outcomes,
-    }
-}
-
-/// The pooled PR curve of the sheets `idx` (repeats count again) for one class,
-/// or for all classes (micro) when `class` is `None`.
-pub fn pooled_curve(sheets: &[SheetOutcomes], idx: &[usize], class: Option<usize>) -> PrCurve {
-    let mut items = Vec::new();
-    let mut n_pos = 0;
-    for &i in idx {
-        let s = &sheets[i];
-        n_pos += match class {
-            Some(k) => s.truths_per_class[k],
-            None => s.truths_per_class.iter().sum(),
-        };
-        items.extend(
-            s.outcomes
-                .iter()
-                .filter(|o| class.is_none_or(|k| o.class == k))
-                .map(|o| (o.score, o.true_positive)),
-        );
-    }
-    pr_curve(&items, n_pos)
-        .expect("scores were checked and true positives never exceed ground truth")
-}
+pub use crate::sheets::{
+    Outcome, PreparedSheet, SheetInput, SheetOutcomes, TruthSymbol, outcomes_of, pooled_curve,
+    prepare_sheets, sheet_outcomes,
+};
 
 /// Per-class all-point and 101-point APs of sheets `idx`, and their means.
 fn class_aps(
@@ -441,7 +235,11 @@ pub struct SheetEvaluation {
     pub map_101: Option<f64>,
     /// IoU sweep 0.1 to 0.9.
     pub iou_sweep: Vec<IouSweepRow>,
-    /// The operating point (`None` when the rule cannot be met).
+    /// The threshold the tables below are computed at (`None` when the
+    /// operating rule cannot be met on these sheets).
+    pub operating_threshold: Option<f64>,
+    /// Precision, recall and F1 there (`None` also when a fixed threshold
+    /// keeps no detection, so precision is undefined).
     pub operating: Option<OperatingPoint>,
     /// Detection confusion table at the operating threshold.
     pub detection_confusion: Option<ConfusionTable>,
@@ -453,34 +251,30 @@ pub struct SheetEvaluation {
     pub intervals: Option<TrustIntervals>,
 }
 
-fn choose_operating(micro: &PrCurve, rule: &OperatingRule) -> Result<Option<OperatingPoint>> {
-    match *rule {
+/// The operating threshold and, where defined, the point it achieves.
+fn choose_operating(
+    micro: &PrCurve,
+    rule: &OperatingRule,
+) -> Result<(Option<f64>, Option<OperatingPoint>)> {
+    let point = match *rule {
         OperatingRule::Fixed { threshold } => {
             in_range(|| "operating threshold".into(), threshold, 0.0, 1.0)?;
-            let (tp, fp) = micro
+            let point = micro
                 .at_threshold(threshold)
-                .map_or((0, 0), |p| (p.tp, p.fp));
-            let precision = if tp + fp > 0 {
-                tp as f64 / (tp + fp) as f64
-            } else {
-                0.0
-            };
-            let recall = if micro.n_positives > 0 {
-                tp as f64 / micro.n_positives as f64
-            } else {
-                0.0
-            };
-            Ok(Some(OperatingPoint {
-                threshold,
-                precision,
-                recall,
-                f1: f1(precision, recall),
-            }))
+                .filter(|_| micro.n_positives > 0)
+                .map(|p| OperatingPoint {
+                    threshold,
+                    precision: p.precision,
+                    recall: p.recall,
+                    f1: f1(p.precision, p.recall),
+                });
+            return Ok((Some(threshold), point));
         }
-        OperatingRule::F1Max => Ok(f1_max(micro)),
-        OperatingRule::TargetPrecision { precision } => recall_at_precision(micro, precision),
-        OperatingRule::TargetRecall { recall } => precision_at_recall(micro, recall),
-    }
+        OperatingRule::F1Max => f1_max(micro),
+        OperatingRule::TargetPrecision { precision } => recall_at_precision(micro, precision)?,
+        OperatingRule::TargetRecall { recall } => precision_at_recall(micro, recall)?,
+    };
+    Ok((point.map(|p| p.threshold), point))
 }
 
 /// Counts of one sheet at a threshold: (kept, true positives, duplicates, ground truth).
@@ -557,9 +351,9 @@ pub fn evaluate_sheets(
         })
         .collect();
 
-    let operating = choose_operating(&micro.pr, &cfg.operating)?;
-    let (detection_confusion, per_sheet) = match operating {
-        Some(op) => {
+    let (operating_threshold, operating) = choose_operating(&micro.pr, &cfg.operating)?;
+    let (detection_confusion, per_sheet) = match operating_threshold {
+        Some(threshold) => {
             let mut table = empty_detection_table(class_names);
             let mut rows = Vec::with_capacity(prepared.len());
             for (p, o) in prepared.iter().zip(&outcomes) {
@@ -568,9 +362,9 @@ pub fn evaluate_sheets(
                     &p.truths,
                     &p.dets,
                     &cfg.criterion,
-                    op.threshold,
+                    threshold,
                 );
-                let (kept, tp, dup, n_truths) = counts_at(o, op.threshold);
+                let (kept, tp, dup, n_truths) = counts_at(o, threshold);
                 rows.push(SheetRow {
                     sheet: p.sheet.clone(),
                     n_truths,
@@ -604,7 +398,7 @@ pub fn evaluate_sheets(
         Some(b) => Some(sheet_intervals(
             &outcomes,
             n,
-            operating.map(|o| o.threshold),
+            operating_threshold,
             b,
             &micro,
             map_all_point,
@@ -623,6 +417,7 @@ pub fn evaluate_sheets(
         map_all_point,
         map_101,
         iou_sweep,
+        operating_threshold,
         operating,
         detection_confusion,
         per_sheet,
@@ -709,6 +504,8 @@ fn sheet_intervals(
 #[cfg(test)]
 mod tests {
     use super::*;
+    use symtrust_labels::BBox;
+    use symtrust_labels::detections::Detection;
 
     fn det(sheet: &str, class: &str, score: f64, x: f64, y: f64) -> Detection {
         Detection {
@@ -860,6 +657,18 @@ mod tests {
         let e = evaluate_sheets(&sheets(), &names(), &cfg).unwrap();
         let op = e.operating.unwrap();
         assert_eq!((op.precision, op.recall), (0.5, 0.75));
+        // A fixed threshold above every score: precision undefined, but the
+        // per-sheet table still shows every symbol missed.
+        let cfg = SheetEvalConfig {
+            operating: OperatingRule::Fixed { threshold: 0.99 },
+            ..cfg
+        };
+        let e = evaluate_sheets(&sheets(), &names(), &cfg).unwrap();
+        assert_eq!((e.operating_threshold, e.operating), (Some(0.99), None));
+        let rows = e.per_sheet.unwrap();
+        assert_eq!(rows.iter().map(|r| r.misses).sum::<u64>(), 4);
+        assert!(rows.iter().all(|r| r.precision.is_none() && r.n_kept == 0));
+        assert_eq!(e.detection_confusion.unwrap().counts[2], vec![0, 0, 0]);
     }
 
     #[test]

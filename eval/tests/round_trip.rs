@@ -69,3 +69,60 @@ fn crop_evaluation_round_trips_through_json() {
     let back: CropEvaluation = serde_json::from_str(&serde_json::to_string(&e).unwrap()).unwrap();
     assert_eq!(back, e);
 }
+
+#[test]
+fn comparison_and_verdict_round_trip_through_json() {
+    use symtrust_eval::compare::{
+        ApKind, PairedApComparison, Verdict, VerdictRule, paired_bootstrap_ap, verdict,
+    };
+    use symtrust_eval::matching::MatchCriterion;
+    use symtrust_eval::sheet_eval::outcomes_of;
+    let names: Vec<String> = vec!["gate_valve".into(), "pump".into()];
+    let sheet = |id: &str, shift: f64| SheetInput {
+        sheet: id.into(),
+        truths: vec![TruthSymbol {
+            class: "pump".into(),
+            bbox: BBox::new(0.0, 0.0, 20.0, 20.0),
+        }],
+        detections: vec![Detection {
+            sheet: id.into(),
+            class: "pump".into(),
+            score: 0.8,
+            x: shift,
+            y: 0.0,
+            w: 20.0,
+            h: 20.0,
+        }],
+        ignore: vec![],
+    };
+    let champion = outcomes_of(
+        &[sheet("s1", 0.0), sheet("s2", 0.0)],
+        &names,
+        &MatchCriterion::default(),
+    )
+    .unwrap();
+    // The challenger's box on s2 is shifted by 15 px: IoU 5/35, a miss.
+    let challenger = outcomes_of(
+        &[sheet("s1", 0.0), sheet("s2", 15.0)],
+        &names,
+        &MatchCriterion::default(),
+    )
+    .unwrap();
+    let cfg = BootstrapConfig {
+        resamples: 100,
+        seed: 8,
+        level: 0.95,
+    };
+    let c = paired_bootstrap_ap(&champion, &challenger, &names, ApKind::AllPoint, &cfg).unwrap();
+    // Champion: both pumps found at 0.8, AP 1. Challenger: one hit and one miss
+    // tied at 0.8 form one point (P = R = 0.5), AP 0.25. Gate valve has no
+    // ground truth and drops out of the mean, so the mAP difference is -0.75.
+    assert_eq!(c.map.difference.estimate, Some(-0.75));
+    let back: PairedApComparison =
+        serde_json::from_str(&serde_json::to_string(&c).unwrap()).unwrap();
+    assert_eq!(back, c);
+    let v = verdict(&c, 0.1, VerdictRule::NonInferiority).unwrap();
+    assert!(!v.promote);
+    let back: Verdict = serde_json::from_str(&serde_json::to_string(&v).unwrap()).unwrap();
+    assert_eq!(back, v);
+}

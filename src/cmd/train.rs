@@ -60,7 +60,9 @@ struct Progress<'a> {
 
 impl TrainObserver for Progress<'_> {
     fn epoch_started(&mut self, epoch: usize, batches: usize) {
-        let bar = self.ctx.progress(batches as u64, &format!("epoch {epoch}/{}", self.epochs));
+        let bar = self
+            .ctx
+            .progress(batches as u64, &format!("epoch {epoch}/{}", self.epochs));
         bar.set_message(self.last_val.clone());
         self.bar = Some(bar);
     }
@@ -149,7 +151,14 @@ pub fn run(ctx: &Ctx, args: &TrainArgs) -> anyhow::Result<u8> {
         epochs: opts.epochs,
         last_val: String::new(),
     };
-    let outcome = train(&data, &arch, &opts, Some(&models), args.resume, &mut progress)?;
+    let outcome = train(
+        &data,
+        &arch,
+        &opts,
+        Some(&models),
+        args.resume,
+        &mut progress,
+    )?;
     let inputs = ModelInputs {
         classes: &data.classes,
         source: &data.source,
@@ -159,8 +168,12 @@ pub fn run(ctx: &Ctx, args: &TrainArgs) -> anyhow::Result<u8> {
     };
     let (card, dir) = write_model(&models, &outcome, &inputs)?;
     let checkpoint = symtrust_trainer::checkpoint::path_for(&models, &outcome.run_key);
-    std::fs::remove_file(&checkpoint)
-        .map_err(|e| anyhow::anyhow!("{}: cannot remove the finished checkpoint: {e}", checkpoint.display()))?;
+    std::fs::remove_file(&checkpoint).map_err(|e| {
+        anyhow::anyhow!(
+            "{}: cannot remove the finished checkpoint: {e}",
+            checkpoint.display()
+        )
+    })?;
     if ctx.json {
         ctx.print_json(&card)?;
     } else {

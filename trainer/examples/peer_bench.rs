@@ -36,7 +36,10 @@ fn sheet(width: usize, height: usize, seed: u64) -> Vec<u8> {
     let mut rng = SeededRng::new(seed);
     let mut px = vec![255u8; width * height];
     for _ in 0..(width * height) / 4000 {
-        let (x, y) = (rng.below(width as u64) as usize, rng.below(height as u64) as usize);
+        let (x, y) = (
+            rng.below(width as u64) as usize,
+            rng.below(height as u64) as usize,
+        );
         let len = 20 + rng.below(200) as usize;
         let horizontal = rng.chance(0.5);
         for d in 0..len {
@@ -61,7 +64,8 @@ fn peak_rss_kib() -> u64 {
 }
 
 fn classifier(window: usize) -> Classifier {
-    let arch = Architecture::from_settings(&ModelSettings::default(), window, 4).expect("default architecture");
+    let arch = Architecture::from_settings(&ModelSettings::default(), window, 4)
+        .expect("default architecture");
     let net = Network::init(&arch, 1, DType::F32).expect("weights");
     Classifier::from_network(net, (0..4).map(|i| format!("c{i}")).collect()).expect("classifier")
 }
@@ -76,7 +80,9 @@ fn main() {
             let mut samples = |n: usize| -> Vec<Sample> {
                 (0..n)
                     .map(|i| Sample {
-                        pixels: (0..window * window).map(|_| if rng.chance(0.1) { 0 } else { 255 }).collect(),
+                        pixels: (0..window * window)
+                            .map(|_| if rng.chance(0.1) { 0 } else { 255 })
+                            .collect(),
                         class: i % 4,
                     })
                     .collect()
@@ -94,7 +100,8 @@ fn main() {
                     dpi: 200.0,
                 },
             };
-            let arch = Architecture::from_settings(&ModelSettings::default(), window, 4).expect("architecture");
+            let arch = Architecture::from_settings(&ModelSettings::default(), window, 4)
+                .expect("architecture");
             let opts = TrainOptions {
                 epochs: 1,
                 batch_size: batch,
@@ -113,10 +120,14 @@ fn main() {
             );
         }
         Some("sweep") => {
-            let (w, h, stride, subset) = (arg(&args, 2), arg(&args, 3), arg(&args, 4), arg(&args, 5));
+            let (w, h, stride, subset) =
+                (arg(&args, 2), arg(&args, 3), arg(&args, 4), arg(&args, 5));
             let clf = classifier(100);
             let px = sheet(w, h, 3);
-            let opts = ScoreMapOptions { stride, ..ScoreMapOptions::native(&clf) };
+            let opts = ScoreMapOptions {
+                stride,
+                ..ScoreMapOptions::native(&clf)
+            };
             let t = Instant::now();
             let map = clf.score_map(&px, w, h, &opts).expect("score map");
             let sweep = t.elapsed().as_secs_f64();
@@ -124,9 +135,14 @@ fn main() {
             let mut rng = SeededRng::new(4);
             let windows: Vec<Vec<u8>> = (0..subset)
                 .map(|_| {
-                    let (r, c) = (rng.below(rows as u64) as usize, rng.below(cols as u64) as usize);
+                    let (r, c) = (
+                        rng.below(rows as u64) as usize,
+                        rng.below(cols as u64) as usize,
+                    );
                     let (x, y) = (c * stride, r * stride);
-                    (y..y + 100).flat_map(|yy| px[yy * w + x..yy * w + x + 100].iter().copied()).collect()
+                    (y..y + 100)
+                        .flat_map(|yy| px[yy * w + x..yy * w + x + 100].iter().copied())
+                        .collect()
                 })
                 .collect();
             let refs: Vec<&[u8]> = windows.iter().map(Vec::as_slice).collect();
@@ -147,7 +163,10 @@ fn main() {
             let clf = classifier(100);
             let px = sheet(w, h, 5);
             let before = peak_rss_kib();
-            let opts = ScoreMapOptions { stride, ..ScoreMapOptions::native(&clf) };
+            let opts = ScoreMapOptions {
+                stride,
+                ..ScoreMapOptions::native(&clf)
+            };
             let t = Instant::now();
             let map = clf.score_map(&px, w, h, &opts).expect("score map");
             println!(

@@ -91,7 +91,14 @@ impl Architecture {
         let unseen = self.unseen_margin();
         if unseen > 0 {
             let fits: Vec<usize> = (self.window.saturating_sub(12)..=self.window + 12)
-                .filter(|w| Self { window: *w, ..self.clone() }.unseen_margin() == 0)
+                .filter(|w| {
+                    Self {
+                        window: *w,
+                        ..self.clone()
+                    }
+                    .unseen_margin()
+                        == 0
+                })
                 .collect();
             return bad(format!(
                 "with window {} the network never sees the last {unseen} pixel row(s) and column(s) of a window (pooling drops an odd edge); windows that fit this network nearby: {fits:?}",
@@ -156,10 +163,16 @@ impl Architecture {
         let mut out = Vec::new();
         for i in 0..self.layers() {
             let (c, k) = (self.conv_channels[i], self.conv_kernels[i]);
-            out.push((format!("conv{}.weight", i + 1), vec![c, self.conv_inputs(i), k, k]));
+            out.push((
+                format!("conv{}.weight", i + 1),
+                vec![c, self.conv_inputs(i), k, k],
+            ));
             out.push((format!("conv{}.bias", i + 1), vec![c]));
         }
-        out.push(("hidden.weight".into(), vec![self.hidden, self.flat_features()]));
+        out.push((
+            "hidden.weight".into(),
+            vec![self.hidden, self.flat_features()],
+        ));
         out.push(("hidden.bias".into(), vec![self.hidden]));
         out.push(("output.weight".into(), vec![self.classes, self.hidden]));
         out.push(("output.bias".into(), vec![self.classes]));
@@ -218,7 +231,10 @@ mod tests {
         // Default network at 32 pixels: 28 -> 14 -> 10 -> 5 -> 3 -> 1. Back from the
         // 1 x 1 map: conv3 rows 0-1, pool2 rows 0-3, conv2 rows 0-7, pool1 rows
         // 0-11, conv1 rows 0-23, pixels 0-27: 4 never seen (hand calculation).
-        let d = Architecture { window: 32, ..default_arch() };
+        let d = Architecture {
+            window: 32,
+            ..default_arch()
+        };
         assert_eq!(d.unseen_margin(), 4);
         assert_eq!(default_arch().unseen_margin(), 0);
     }

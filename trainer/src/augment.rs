@@ -71,7 +71,13 @@ impl Augmentation {
     }
 
     /// An augmented copy of a square `side x side` ink image (ink 1, paper 0).
-    pub fn apply(&self, ink: &[f32], side: usize, rotatable: bool, rng: &mut SeededRng) -> Vec<f32> {
+    pub fn apply(
+        &self,
+        ink: &[f32],
+        side: usize,
+        rotatable: bool,
+        rng: &mut SeededRng,
+    ) -> Vec<f32> {
         let mut img = ink.to_vec();
         if self.rotate && rotatable {
             let turns = rng.below(4);
@@ -242,7 +248,10 @@ mod tests {
             max_skew: 0.0,
             ..Augmentation::none()
         };
-        let aug = Augmentation { rotate: true, ..aug };
+        let aug = Augmentation {
+            rotate: true,
+            ..aug
+        };
         let img = bar(16, 7, 1);
         let mut rng = SeededRng::new(5);
         let mut turned = 0;
@@ -252,7 +261,10 @@ mod tests {
                 turned += 1;
             }
         }
-        assert!(turned > 10, "a rotatable class turns in most draws ({turned}/40)");
+        assert!(
+            turned > 10,
+            "a rotatable class turns in most draws ({turned}/40)"
+        );
     }
 
     #[test]

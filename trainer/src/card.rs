@@ -116,11 +116,18 @@ pub struct ModelInputs<'a> {
 }
 
 /// Writes `models_dir/<id>/` atomically and returns its card and folder.
-pub fn write_model(models_dir: &Path, outcome: &TrainOutcome, inputs: &ModelInputs<'_>) -> Result<(ModelCard, PathBuf)> {
+pub fn write_model(
+    models_dir: &Path,
+    outcome: &TrainOutcome,
+    inputs: &ModelInputs<'_>,
+) -> Result<(ModelCard, PathBuf)> {
     let weights = weights_bytes(&outcome.network)?;
     let sha = sha256_hex(&weights);
     let created = symtrust_labels::clock::now_rfc3339();
-    let stamp: String = created.chars().filter(|c| c.is_ascii_digit() || *c == 'T').collect();
+    let stamp: String = created
+        .chars()
+        .filter(|c| c.is_ascii_digit() || *c == 'T')
+        .collect();
     let id = format!("{stamp}-{}", &sha[..8]);
     let arch = outcome.network.arch.clone();
     let card = ModelCard {
@@ -164,11 +171,18 @@ pub fn write_model(models_dir: &Path, outcome: &TrainOutcome, inputs: &ModelInpu
 
 /// The per-epoch log as CSV.
 pub fn log_csv(rows: &[EpochRow]) -> String {
-    let mut s = String::from("epoch,train_loss,val_loss,val_accuracy,val_macro_f1,learning_rate,seconds\n");
+    let mut s =
+        String::from("epoch,train_loss,val_loss,val_accuracy,val_macro_f1,learning_rate,seconds\n");
     for r in rows {
         s.push_str(&format!(
             "{},{:.6},{:.6},{:.6},{:.6},{:.3e},{:.2}\n",
-            r.epoch, r.train_loss, r.val_loss, r.val_accuracy, r.val_macro_f1, r.learning_rate, r.seconds
+            r.epoch,
+            r.train_loss,
+            r.val_loss,
+            r.val_accuracy,
+            r.val_macro_f1,
+            r.learning_rate,
+            r.seconds
         ));
     }
     s
@@ -243,7 +257,10 @@ pub fn load_model(dir: &Path) -> Result<(ModelCard, Network)> {
     if card.schema_version != CARD_SCHEMA_VERSION {
         return Err(TrainerError::ModelFolder {
             path: card_path,
-            message: format!("card schema {} is not the supported {CARD_SCHEMA_VERSION}", card.schema_version),
+            message: format!(
+                "card schema {} is not the supported {CARD_SCHEMA_VERSION}",
+                card.schema_version
+            ),
         });
     }
     if card.classes.len() != card.architecture.classes || card.window != card.architecture.window {
@@ -283,9 +300,21 @@ mod tests {
         assert!(write_folder(dir.path(), "m1", &files).is_err());
         assert_eq!(std::fs::read_dir(dir.path()).unwrap().count(), 0);
         std::fs::create_dir(dir.path().join(".writing-m0-4000000000")).unwrap();
-        std::fs::create_dir(dir.path().join(format!(".writing-m9-{}", std::process::id()))).unwrap();
-        assert_eq!(remove_stale_writes(dir.path()).unwrap(), 1, "only the dead writer's folder");
-        std::fs::remove_dir(dir.path().join(format!(".writing-m9-{}", std::process::id()))).unwrap();
+        std::fs::create_dir(
+            dir.path()
+                .join(format!(".writing-m9-{}", std::process::id())),
+        )
+        .unwrap();
+        assert_eq!(
+            remove_stale_writes(dir.path()).unwrap(),
+            1,
+            "only the dead writer's folder"
+        );
+        std::fs::remove_dir(
+            dir.path()
+                .join(format!(".writing-m9-{}", std::process::id())),
+        )
+        .unwrap();
         let ok = write_folder(dir.path(), "m2", &[("a", b"1".to_vec())]).unwrap();
         assert_eq!(std::fs::read(ok.join("a")).unwrap(), b"1");
         assert!(write_folder(dir.path(), "m2", &[("a", b"1".to_vec())]).is_err());

@@ -10,8 +10,8 @@
 //! settings finds nothing instead of mixing two runs.
 
 use crate::error::{Result, TensorContext, TrainerError};
-use crate::train::EpochRow;
 use crate::metrics::ValidationMetrics;
+use crate::train::EpochRow;
 use candle_core::{Device, Tensor};
 use serde::{Deserialize, Serialize};
 use std::collections::HashMap;
@@ -64,7 +64,10 @@ impl Checkpoint {
     /// Writes the checkpoint atomically (temp file, fsync, rename, fsync folder).
     pub fn save(&self, path: &Path, names: &[String]) -> Result<()> {
         let mut tensors: Vec<(String, &Tensor)> = Vec::new();
-        for (group, list) in GROUPS.iter().zip([&self.params, &self.best, &self.m, &self.v]) {
+        for (group, list) in GROUPS
+            .iter()
+            .zip([&self.params, &self.best, &self.m, &self.v])
+        {
             for (name, t) in names.iter().zip(list) {
                 tensors.push((format!("{group}.{name}"), t));
             }
@@ -74,10 +77,11 @@ impl Checkpoint {
             message: format!("cannot encode the training state: {e}"),
         })?;
         let meta = HashMap::from([("state".to_string(), state)]);
-        let bytes = safetensors::serialize(tensors, Some(meta)).map_err(|e| TrainerError::ModelFolder {
-            path: path.to_path_buf(),
-            message: format!("cannot encode the checkpoint: {e}"),
-        })?;
+        let bytes =
+            safetensors::serialize(tensors, Some(meta)).map_err(|e| TrainerError::ModelFolder {
+                path: path.to_path_buf(),
+                message: format!("cannot encode the checkpoint: {e}"),
+            })?;
         if let Some(dir) = path.parent() {
             std::fs::create_dir_all(dir).map_err(|e| TrainerError::io(dir, e))?;
         }

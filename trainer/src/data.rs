@@ -16,8 +16,7 @@ use symtrust_labels::hash::sha256_file;
 use symtrust_labels::site::ClassSpec;
 
 /// The documented input normalisation, as written into every model card.
-pub const NORMALISATION: &str =
-    "grayscale 8-bit at the site's canonical resolution; ink = (255 - pixel) / 255 (paper 0, full ink 1)";
+pub const NORMALISATION: &str = "grayscale 8-bit at the site's canonical resolution; ink = (255 - pixel) / 255 (paper 0, full ink 1)";
 
 /// Network input value of an 8-bit pixel (paper 255, ink 0).
 pub fn ink(pixel: u8) -> f32 {
@@ -84,10 +83,7 @@ impl Dataset {
             return Err(TrainerError::WindowMismatch {
                 what: format!("crop library {}", manifest_path.display()),
                 expected: format!("{window} x {window} (site.toml)"),
-                found: format!(
-                    "{0} x {0}",
-                    lib.manifest.settings.window
-                ),
+                found: format!("{0} x {0}", lib.manifest.settings.window),
             });
         }
         let loaded: Vec<(CropSplit, Sample)> = lib
@@ -178,7 +174,10 @@ pub fn find_library(crops_dir: &Path, id: Option<&str>) -> Result<PathBuf> {
         if !dir.join("manifest.json").is_file() {
             return Err(TrainerError::CropLibrary {
                 path: dir,
-                message: format!("no crop library {id:?} here; list {} for the ids", crops_dir.display()),
+                message: format!(
+                    "no crop library {id:?} here; list {} for the ids",
+                    crops_dir.display()
+                ),
             });
         }
         return Ok(dir);
@@ -195,19 +194,28 @@ pub fn find_library(crops_dir: &Path, id: Option<&str>) -> Result<PathBuf> {
         if name.starts_with('.') || !manifest.is_file() {
             continue;
         }
-        let text = std::fs::read_to_string(&manifest).map_err(|e| TrainerError::io(&manifest, e))?;
+        let text =
+            std::fs::read_to_string(&manifest).map_err(|e| TrainerError::io(&manifest, e))?;
         let created = serde_json::from_str::<serde_json::Value>(&text)
             .ok()
-            .and_then(|v| v.get("created").and_then(|c| c.as_str()).map(str::to_string))
+            .and_then(|v| {
+                v.get("created")
+                    .and_then(|c| c.as_str())
+                    .map(str::to_string)
+            })
             .unwrap_or_default();
-        if best.as_ref().is_none_or(|(c, n, _)| (&created, &name) > (c, n)) {
+        if best
+            .as_ref()
+            .is_none_or(|(c, n, _)| (&created, &name) > (c, n))
+        {
             best = Some((created, name, entry.path()));
         }
     }
-    best.map(|(_, _, p)| p).ok_or_else(|| TrainerError::CropLibrary {
-        path: crops_dir.to_path_buf(),
-        message: "no crop library found; build one with `symtrust crops build`".to_string(),
-    })
+    best.map(|(_, _, p)| p)
+        .ok_or_else(|| TrainerError::CropLibrary {
+            path: crops_dir.to_path_buf(),
+            message: "no crop library found; build one with `symtrust crops build`".to_string(),
+        })
 }
 
 #[cfg(test)]

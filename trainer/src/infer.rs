@@ -77,8 +77,10 @@ impl Classifier {
             let parts: Vec<Vec<Vec<f32>>> = group
                 .par_chunks(EVAL_BATCH)
                 .map(|chunk| {
-                    let images: Vec<Vec<f32>> =
-                        chunk.iter().map(|w| w.iter().map(|p| ink(*p)).collect()).collect();
+                    let images: Vec<Vec<f32>> = chunk
+                        .iter()
+                        .map(|w| w.iter().map(|p| ink(*p)).collect())
+                        .collect();
                     let run = || -> candle_core::Result<Vec<Vec<f32>>> {
                         let x = batch_tensor(images, side, DType::F32)?;
                         let logits = self.network.forward(&x, None)?;

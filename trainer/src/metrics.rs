@@ -30,7 +30,11 @@ impl Confusion {
     pub fn accuracy(&self) -> f64 {
         let total: u64 = self.counts.iter().flatten().sum();
         let right: u64 = (0..self.counts.len()).map(|i| self.counts[i][i]).sum();
-        if total == 0 { 0.0 } else { right as f64 / total as f64 }
+        if total == 0 {
+            0.0
+        } else {
+            right as f64 / total as f64
+        }
     }
 
     /// Per-class F1 (`None` for a class absent from truth and predictions).

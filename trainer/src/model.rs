@@ -65,10 +65,12 @@ impl Network {
         arch.validate()?;
         let mut params = Vec::new();
         for (name, shape) in arch.parameter_shapes() {
-            let t = tensors.get(&name).ok_or_else(|| TrainerError::ModelFolder {
-                path: source.to_path_buf(),
-                message: format!("tensor {name:?} is missing"),
-            })?;
+            let t = tensors
+                .get(&name)
+                .ok_or_else(|| TrainerError::ModelFolder {
+                    path: source.to_path_buf(),
+                    message: format!("tensor {name:?} is missing"),
+                })?;
             if t.dims() != shape.as_slice() {
                 return Err(TrainerError::ModelFolder {
                     path: source.to_path_buf(),
@@ -127,7 +129,10 @@ impl Network {
     }
 
     fn conv(&self, i: usize) -> (&Tensor, &Tensor) {
-        (self.params[2 * i].as_tensor(), self.params[2 * i + 1].as_tensor())
+        (
+            self.params[2 * i].as_tensor(),
+            self.params[2 * i + 1].as_tensor(),
+        )
     }
 
     fn dense(&self) -> [&Tensor; 4] {
@@ -152,7 +157,11 @@ impl Network {
 
     /// Logits `(batch, classes)` for windows `(batch, 1, S, S)`; `dropout_mask`
     /// (`(batch, hidden)`, already scaled by `1 / keep`) is applied in training.
-    pub fn forward(&self, x: &Tensor, dropout_mask: Option<&Tensor>) -> candle_core::Result<Tensor> {
+    pub fn forward(
+        &self,
+        x: &Tensor,
+        dropout_mask: Option<&Tensor>,
+    ) -> candle_core::Result<Tensor> {
         let [hw, hb, ow, ob] = self.dense();
         let f = self.features(x)?.flatten_from(1)?;
         let mut h = f.matmul(&hw.t()?)?.broadcast_add(hb)?.relu()?;
@@ -207,7 +216,13 @@ mod tests {
         let mut rng = SeededRng::new(4);
         let px: Vec<f32> = (0..196).map(|_| rng.uniform() as f32).collect();
         let x = Tensor::from_vec(px, (1, 1, 14, 14), &Device::Cpu).unwrap();
-        let a = net.forward(&x, None).unwrap().flatten_all().unwrap().to_vec1::<f32>().unwrap();
+        let a = net
+            .forward(&x, None)
+            .unwrap()
+            .flatten_all()
+            .unwrap()
+            .to_vec1::<f32>()
+            .unwrap();
         let b = net
             .forward_dense_as_conv(&x)
             .unwrap()

@@ -39,7 +39,10 @@ pub fn max_pool2(x: &Tensor) -> Result<Tensor> {
     } else {
         x.clone()
     };
-    x.contiguous()?.reshape((b, c, h2, 2, w2, 2))?.max(5)?.max(3)
+    x.contiguous()?
+        .reshape((b, c, h2, 2, w2, 2))?
+        .max(5)?
+        .max(3)
 }
 
 #[cfg(test)]
@@ -52,11 +55,17 @@ mod tests {
         let dev = Device::Cpu;
         // 1 x 1 x 3 x 3 input 0..9, 2 x 2 kernel of ones, bias 1:
         // top-left output = 0 + 1 + 3 + 4 + 1 = 9 (hand calculation).
-        let x = Tensor::arange(0f32, 9., &dev).unwrap().reshape((1, 1, 3, 3)).unwrap();
+        let x = Tensor::arange(0f32, 9., &dev)
+            .unwrap()
+            .reshape((1, 1, 3, 3))
+            .unwrap();
         let w = Tensor::ones((1, 1, 2, 2), candle_core::DType::F32, &dev).unwrap();
         let b = Tensor::new(&[1f32], &dev).unwrap();
         let y = conv2d(&x, &w, &b).unwrap();
-        assert_eq!(y.flatten_all().unwrap().to_vec1::<f32>().unwrap(), vec![9., 13., 21., 25.]);
+        assert_eq!(
+            y.flatten_all().unwrap().to_vec1::<f32>().unwrap(),
+            vec![9., 13., 21., 25.]
+        );
         let p = max_pool2(&x).unwrap();
         assert_eq!(p.dims(), &[1, 1, 1, 1]);
         assert_eq!(p.flatten_all().unwrap().to_vec1::<f32>().unwrap(), vec![4.]);
@@ -83,12 +92,22 @@ mod tests {
     fn pooling_gradient_goes_whole_to_the_maximum() {
         // d/dx of sum(maxpool(x)) is 1 at each block's maximum, 0 elsewhere.
         let dev = Device::Cpu;
-        let x = candle_core::Var::from_tensor(
-            &Tensor::new(&[[[[1f32, 5.], [2., 3.]]]], &dev).unwrap(),
-        )
-        .unwrap();
-        let g = max_pool2(x.as_tensor()).unwrap().sum_all().unwrap().backward().unwrap();
-        let g = g.get(x.as_tensor()).unwrap().flatten_all().unwrap().to_vec1::<f32>().unwrap();
+        let x =
+            candle_core::Var::from_tensor(&Tensor::new(&[[[[1f32, 5.], [2., 3.]]]], &dev).unwrap())
+                .unwrap();
+        let g = max_pool2(x.as_tensor())
+            .unwrap()
+            .sum_all()
+            .unwrap()
+            .backward()
+            .unwrap();
+        let g = g
+            .get(x.as_tensor())
+            .unwrap()
+            .flatten_all()
+            .unwrap()
+            .to_vec1::<f32>()
+            .unwrap();
         assert_eq!(g, vec![0., 1., 0., 0.]);
     }
 }

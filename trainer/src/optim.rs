@@ -44,8 +44,16 @@ impl AdamW {
         let zeros = |v: &Var| v.as_tensor().zeros_like();
         Ok(Self {
             step: 0,
-            m: vars.iter().map(zeros).collect::<candle_core::Result<_>>().during("creating the optimiser")?,
-            v: vars.iter().map(zeros).collect::<candle_core::Result<_>>().during("creating the optimiser")?,
+            m: vars
+                .iter()
+                .map(zeros)
+                .collect::<candle_core::Result<_>>()
+                .during("creating the optimiser")?,
+            v: vars
+                .iter()
+                .map(zeros)
+                .collect::<candle_core::Result<_>>()
+                .during("creating the optimiser")?,
             decay,
         })
     }
@@ -107,7 +115,10 @@ mod tests {
         let mut opt = AdamW::new(std::slice::from_ref(&var), vec![0.0]).unwrap();
         opt.step(std::slice::from_ref(&var), &grads, 0.1).unwrap();
         let got = var.as_tensor().to_vec1::<f32>().unwrap();
-        assert!((got[0] - 0.9).abs() < 1e-6 && (got[1] + 1.9).abs() < 1e-6, "{got:?}");
+        assert!(
+            (got[0] - 0.9).abs() < 1e-6 && (got[1] + 1.9).abs() < 1e-6,
+            "{got:?}"
+        );
         assert_eq!(opt.m[0].dtype(), DType::F32);
     }
 

@@ -87,7 +87,13 @@ impl ScoreMap {
 
 /// Grid `(cols, rows)` of windows fully inside a `width x height` sheet.
 pub fn grid_size(width: usize, height: usize, window: usize, stride: usize) -> (usize, usize) {
-    let n = |side: usize| if side < window { 0 } else { (side - window) / stride + 1 };
+    let n = |side: usize| {
+        if side < window {
+            0
+        } else {
+            (side - window) / stride + 1
+        }
+    };
     (n(width), n(height))
 }
 
@@ -100,12 +106,22 @@ struct Tile {
 
 impl Classifier {
     /// The score map of an 8-bit sheet (`width * height` bytes, paper 255, ink 0).
-    pub fn score_map(&self, pixels: &[u8], width: usize, height: usize, opts: &ScoreMapOptions) -> Result<ScoreMap> {
+    pub fn score_map(
+        &self,
+        pixels: &[u8],
+        width: usize,
+        height: usize,
+        opts: &ScoreMapOptions,
+    ) -> Result<ScoreMap> {
         let arch = &self.network.arch;
         let (window, native) = (arch.window, arch.native_stride());
         if pixels.len() != width * height {
             return Err(TrainerError::Settings {
-                message: format!("sheet buffer holds {} bytes, {width} x {height} needs {}", pixels.len(), width * height),
+                message: format!(
+                    "sheet buffer holds {} bytes, {width} x {height} needs {}",
+                    pixels.len(),
+                    width * height
+                ),
             });
         }
         if opts.stride == 0 || native % opts.stride != 0 || opts.tile_cells == 0 {
@@ -129,7 +145,12 @@ impl Classifier {
         let mut jobs = Vec::new();
         for dy in (0..native).step_by(opts.stride) {
             for dx in (0..native).step_by(opts.stride) {
-                let (pc, pr) = grid_size(width.saturating_sub(dx), height.saturating_sub(dy), window, native);
+                let (pc, pr) = grid_size(
+                    width.saturating_sub(dx),
+                    height.saturating_sub(dy),
+                    window,
+                    native,
+                );
                 for r0 in (0..pr).step_by(opts.tile_cells) {
                     for c0 in (0..pc).step_by(opts.tile_cells) {
                         jobs.push(Tile {
@@ -171,8 +192,17 @@ impl Classifier {
     }
 
     /// The score map of a grayscale image (paper 255, ink 0).
-    pub fn score_map_image(&self, sheet: &image::GrayImage, opts: &ScoreMapOptions) -> Result<ScoreMap> {
-        self.score_map(sheet.as_raw(), sheet.width() as usize, sheet.height() as usize, opts)
+    pub fn score_map_image(
+        &self,
+        sheet: &image::GrayImage,
+        opts: &ScoreMapOptions,
+    ) -> Result<ScoreMap> {
+        self.score_map(
+            sheet.as_raw(),
+            sheet.width() as usize,
+            sheet.height() as usize,
+            opts,
+        )
     }
 
     /// Probabilities of one tile's cells, cell-major then class.
@@ -191,7 +221,11 @@ impl Classifier {
             let logits = self.network.forward_dense_as_conv(&x)?;
             let logits = logits.narrow(2, 0, t.rows)?.narrow(3, 0, t.cols)?;
             let probs = candle_nn::ops::softmax(&logits, 1)?;
-            probs.squeeze(0)?.permute((1, 2, 0))?.flatten_all()?.to_vec1::<f32>()
+            probs
+                .squeeze(0)?
+                .permute((1, 2, 0))?
+                .flatten_all()?
+                .to_vec1::<f32>()
         };
         run().during("computing a score-map tile")
     }

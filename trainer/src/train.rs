@@ -77,9 +77,9 @@ impl TrainOptions {
                 message: "epochs and batch size must be positive".to_string(),
             });
         }
-        if !(self.learning_rate.is_finite() && self.learning_rate > 0.0)
-            || !(self.weight_decay.is_finite() && self.weight_decay >= 0.0)
-        {
+        let lr_ok = self.learning_rate.is_finite() && self.learning_rate > 0.0;
+        let decay_ok = self.weight_decay.is_finite() && self.weight_decay >= 0.0;
+        if !(lr_ok && decay_ok) {
             return Err(TrainerError::Settings {
                 message: "learning rate must be positive and weight decay non-negative".to_string(),
             });
@@ -169,19 +169,33 @@ pub fn class_weights(counts: &[usize]) -> Vec<f64> {
     let k = counts.len() as f64;
     counts
         .iter()
-        .map(|c| if *c == 0 { 0.0 } else { n as f64 / (k * *c as f64) })
+        .map(|c| {
+            if *c == 0 {
+                0.0
+            } else {
+                n as f64 / (k * *c as f64)
+            }
+        })
         .collect()
 }
 
 /// Builds a `(batch, 1, S, S)` input from ink images.
-pub fn batch_tensor(images: Vec<Vec<f32>>, side: usize, dtype: DType) -> candle_core::Result<Tensor> {
+pub fn batch_tensor(
+    images: Vec<Vec<f32>>,
+    side: usize,
+    dtype: DType,
+) -> candle_core::Result<Tensor> {
     let n = images.len();
     let flat: Vec<f32> = images.into_iter().flatten().collect();
     Tensor::from_vec(flat, (n, 1, side, side), &Device::Cpu)?.to_dtype(dtype)
 }
 
 /// Weighted cross-entropy of `logits` against `classes`, mean over the weights.
-pub fn weighted_loss(logits: &Tensor, classes: &[usize], weights: &[f64]) -> candle_core::Result<Tensor> {
+pub fn weighted_loss(
+    logits: &Tensor,
+    classes: &[usize],
+    weights: &[f64],
+) -> candle_core::Result<Tensor> {
     let (n, k) = logits.dims2()?;
     let mut target = vec![0f64; n * k];
     let mut total = 0.0;
@@ -201,7 +215,10 @@ pub fn evaluate(net: &Network, samples: &[Sample], classes: usize) -> Result<Val
     let mut predicted = Vec::with_capacity(samples.len());
     let mut loss_sum = 0.0;
     for chunk in samples.chunks(EVAL_BATCH) {
-        let images: Vec<Vec<f32>> = chunk.iter().map(|s| s.pixels.iter().map(|p| ink(*p)).collect()).collect();
+        let images: Vec<Vec<f32>> = chunk
+            .iter()
+            .map(|s| s.pixels.iter().map(|p| ink(*p)).collect())
+            .collect();
         let run = || -> candle_core::Result<(Vec<Vec<f32>>, f64)> {
             let x = batch_tensor(images, side, DType::F32)?;
             let logits = net.forward(&x, None)?;
@@ -255,16 +272,30 @@ pub fn train(
         return Err(TrainerError::WindowMismatch {
             what: "crop library".to_string(),
             expected: format!("{0} x {0} with {1} classes", arch.window, arch.classes),
-            found: format!("{0} x {0} with {1} classes", data.window, data.classes.len()),
+            found: format!(
+                "{0} x {0} with {1} classes",
+                data.window,
+                data.classes.len()
+            ),
         });
     }
     let key = run_key(data, arch, opts);
     let ckpt_path: Option<PathBuf> = checkpoint_dir.map(|d| checkpoint::path_for(d, &key));
-    let names: Vec<String> = arch.parameter_shapes().into_iter().map(|(n, _)| n).collect();
+    let names: Vec<String> = arch
+        .parameter_shapes()
+        .into_iter()
+        .map(|(n, _)| n)
+        .collect();
     let net = Network::init(arch, opts.seed, DType::F32)?;
     let decay: Vec<f64> = names
         .iter()
-        .map(|n| if n.ends_with(".weight") { opts.weight_decay } else { 0.0 })
+        .map(|n| {
+            if n.ends_with(".weight") {
+                opts.weight_decay
+            } else {
+                0.0
+            }
+        })
         .collect();
     let mut opt = AdamW::new(&net.params, decay)?;
     let mut state = LoopState {
@@ -299,7 +330,11 @@ pub fn train(
     let weights = class_weights(&data.class_counts(&data.train));
     let per_epoch = data.train.len().div_ceil(opts.batch_size) as u64;
     let total_steps = per_epoch * opts.epochs as u64;
-    let aug = if opts.augment { Augmentation::default() } else { Augmentation::none() };
+    let aug = if opts.augment {
+        Augmentation::default()
+    } else {
+        Augmentation::none()
+    };
     let side = arch.window;
     let mut stopped_early = false;
     for epoch in state.epochs_done..opts.epochs {
@@ -320,12 +355,16 @@ pub fn train(
                 .map(|(j, &i)| {
                     let s = &data.train[i];
                     let px: Vec<f32> = s.pixels.iter().map(|p| ink(*p)).collect();
-                    let mut rng = SeededRng::derive(opts.seed, &format!("augment/{epoch}/{}", b * opts.batch_size + j));
+                    let mut rng = SeededRng::derive(
+                        opts.seed,
+                        &format!("augment/{epoch}/{}", b * opts.batch_size + j),
+                    );
                     aug.apply(&px, side, data.rotatable[s.class], &mut rng)
                 })
                 .collect();
             let labels: Vec<usize> = chunk.iter().map(|&i| data.train[i].class).collect();
-            let mask = dropout_mask(arch, chunk.len(), opts.seed, epoch, b).during("building dropout")?;
+            let mask =
+                dropout_mask(arch, chunk.len(), opts.seed, epoch, b).during("building dropout")?;
             let step = || -> candle_core::Result<(f64, candle_core::backprop::GradStore)> {
                 let x = batch_tensor(images, side, DType::F32)?;
                 let logits = net.forward(&x, mask.as_ref())?;
@@ -356,7 +395,9 @@ pub fn train(
         };
         let improved = match &state.best {
             None => true,
-            Some(b) => val.macro_f1 > b.macro_f1 || (val.macro_f1 == b.macro_f1 && val.loss < b.loss),
+            Some(b) => {
+                val.macro_f1 > b.macro_f1 || (val.macro_f1 == b.macro_f1 && val.loss < b.loss)
+            }
         };
         if improved {
             best = net.snapshot()?;
@@ -395,7 +436,14 @@ pub fn train(
     })
 }
 
-fn save(path: &Path, names: &[String], net: &Network, opt: &AdamW, best: &[Tensor], state: &LoopState) -> Result<()> {
+fn save(
+    path: &Path,
+    names: &[String],
+    net: &Network,
+    opt: &AdamW,
+    best: &[Tensor],
+    state: &LoopState,
+) -> Result<()> {
     Checkpoint {
         state: state.clone(),
         params: net.snapshot()?,
@@ -407,16 +455,32 @@ fn save(path: &Path, names: &[String], net: &Network, opt: &AdamW, best: &[Tenso
 }
 
 /// Inverted-dropout mask `(batch, hidden)`: 0 or `1 / keep`, from the seed.
-fn dropout_mask(arch: &Architecture, batch: usize, seed: u64, epoch: usize, b: usize) -> candle_core::Result<Option<Tensor>> {
+fn dropout_mask(
+    arch: &Architecture,
+    batch: usize,
+    seed: u64,
+    epoch: usize,
+    b: usize,
+) -> candle_core::Result<Option<Tensor>> {
     if arch.dropout <= 0.0 {
         return Ok(None);
     }
     let keep = 1.0 - arch.dropout;
     let mut rng = SeededRng::derive(seed, &format!("dropout/{epoch}/{b}"));
     let values: Vec<f32> = (0..batch * arch.hidden)
-        .map(|_| if rng.chance(keep) { (1.0 / keep) as f32 } else { 0.0 })
+        .map(|_| {
+            if rng.chance(keep) {
+                (1.0 / keep) as f32
+            } else {
+                0.0
+            }
+        })
         .collect();
-    Ok(Some(Tensor::from_vec(values, (batch, arch.hidden), &Device::Cpu)?))
+    Ok(Some(Tensor::from_vec(
+        values,
+        (batch, arch.hidden),
+        &Device::Cpu,
+    )?))
 }
 
 #[cfg(test)]
@@ -428,7 +492,10 @@ mod tests {
         // Hand calculation: n = 100, K = 2 -> 100 / (2 * 90) and 100 / (2 * 10).
         let w = class_weights(&[90, 10]);
         assert!((w[0] - 100.0 / 180.0).abs() < 1e-12 && (w[1] - 5.0).abs() < 1e-12);
-        assert!((90.0 * w[0] - 10.0 * w[1]).abs() < 1e-9, "equal total weight per class");
+        assert!(
+            (90.0 * w[0] - 10.0 * w[1]).abs() < 1e-9,
+            "equal total weight per class"
+        );
     }
 
     #[test]

@@ -1,12 +1,15 @@
 //! COCO-format detection JSON, as an open interchange format.
 //!
 //! The layout follows the COCO dataset's published data format for object
-//! detection (cocodataset.org, "Data format", section 1 "Object Detection"):
+//! detection (cocodataset.org, "Data format" page, object detection; recalled
+//! from memory, and an export of the synthetic plant loads and evaluates in
+//! pycocotools 2.0.8, checked once by hand):
 //! `images` (id, file_name, width, height), `annotations` (id, image_id,
 //! category_id, `bbox` as `[x, y, width, height]` from the top-left corner in
 //! pixels, area, iscrowd) and `categories` (id, name). Ids are ours: images are
 //! numbered from 1 in sheet order, annotations from 1 in (sheet, symbol id) order,
-//! categories from 1 in the order of `site.toml`.
+//! categories from 1 in the order of `site.toml` (then, by name, any class a
+//! label still uses that `site.toml` no longer defines).
 //!
 //! Each annotation also carries an object of our own, `"symtrust": {"symbol":
 //! <id>, "state": <review state>}`, which other tools ignore and which makes the
@@ -96,10 +99,21 @@ pub struct CocoFile {
 pub fn build(docs: &[LabelDocument], classes: &[String]) -> CocoFile {
     let mut docs: Vec<&LabelDocument> = docs.iter().collect();
     docs.sort_by(|a, b| a.sheet.id.cmp(&b.sheet.id));
-    let category: HashMap<&str, u64> = classes
+    // Site classes first, in site order; a class that site.toml no longer defines
+    // (`labels check` reports it) follows in name order, so the file stays valid.
+    let mut names: Vec<String> = classes.to_vec();
+    let mut strays: Vec<&str> = docs
+        .iter()
+        .flat_map(|d| d.symbols.iter().map(|s| s.class.as_str()))
+        .filter(|c| !classes.iter().any(|k| k == c))
+        .collect();
+    strays.sort_unstable();
+    strays.dedup();
+    names.extend(strays.into_iter().map(str::to_string));
+    let category: HashMap<String, u64> = names
         .iter()
         .enumerate()
-        .map(|(i, c)| (c.as_str(), i as u64 + 1))
+        .map(|(i, c)| (c.clone(), i as u64 + 1))
         .collect();
     let mut images = Vec::new();
     let mut annotations = Vec::new();
@@ -118,9 +132,7 @@ pub fn build(docs: &[LabelDocument], classes: &[String]) -> CocoFile {
             annotations.push(CocoAnnotation {
                 id: annotations.len() as u64 + 1,
                 image_id,
-                // A class missing from site.toml gets 0, which no category has;
-                // `labels check` reports such symbols.
-                category_id: category.get(s.class.as_str()).copied().unwrap_or(0),
+                category_id: category[&s.class],
                 bbox: vec![b.x, b.y, b.w, b.h],
                 area: b.area(),
                 iscrowd: 0,
@@ -131,7 +143,7 @@ pub fn build(docs: &[LabelDocument], classes: &[String]) -> CocoFile {
             });
         }
     }
-    let categories = classes
+    let categories = names
         .iter()
         .enumerate()
         .map(|(i, c)| CocoCategory {
@@ -266,7 +278,8 @@ mod tests {
         doc.symbols[0].bbox = BBox::new(10.0, 20.0, 30.0, 40.0);
         let v: serde_json::Value =
             serde_json::from_slice(&render(&[doc], &classes(), "north")).unwrap();
-        // COCO data format: bbox is [x, y, width, height], area in pixels, ids from 1.
+        // COCO data format (cocodataset.org, from memory): bbox is [x, y, width,
+        // height] from the top-left corner, area in square pixels; ids from 1 are ours.
         let a = &v["annotations"][0];
         assert_eq!(a["bbox"], serde_json::json!([10.0, 20.0, 30.0, 40.0]));
         assert_eq!(a["area"], 1200.0);
@@ -280,6 +293,16 @@ mod tests {
             v["categories"][0],
             serde_json::json!({"id": 1, "name": "valve"})
         );
+    }
+
+    #[test]
+    fn a_class_missing_from_the_site_gets_its_own_category() {
+        let mut doc = sample_doc();
+        doc.symbols[0].class = "old_pump".into();
+        let file = build(&[doc], &classes());
+        let names: Vec<&str> = file.categories.iter().map(|c| c.name.as_str()).collect();
+        assert_eq!(names, vec!["valve", "pump", "old_pump"]);
+        assert_eq!(file.annotations[0].category_id, 3);
     }
 
     #[test]
@@ -370,10 +393,10 @@ mod tests {
                 let n = bytes.len();
                 bytes[at % n] = b;
             }
-            if let Ok(text) = std::str::from_utf8(&bytes) {
-                if let Err(e) = parse(Path::new("c.json"), text) {
-                    proptest::prop_assert!(e.to_string().starts_with("c.json:"), "{}", e);
-                }
+            if let Ok(text) = std::str::from_utf8(&bytes)
+                && let Err(e) = parse(Path::new("c.json"), text)
+            {
+                proptest::prop_assert!(e.to_string().starts_with("c.json:"), "{}", e);
             }
         }
     }

@@ -1,7 +1,7 @@
 //! Bad input: clear errors that name the file, nothing half-written.
 
-use super::library::{classes, tiny_arch, write_library, WINDOW};
-use symtrust_trainer::card::{write_model, ModelInputs, WEIGHTS_FILE};
+use super::library::{WINDOW, classes, tiny_arch, write_library};
+use symtrust_trainer::card::{ModelInputs, WEIGHTS_FILE, write_model};
 use symtrust_trainer::train::Silent;
 use symtrust_trainer::{Classifier, Dataset, TrainOptions, TrainerError, train};
 
@@ -35,7 +35,9 @@ fn an_edited_index_is_refused() {
     let tmp = tempfile::tempdir().unwrap();
     let dir = write_library(tmp.path(), 1, 8, None);
     let index = dir.join("index.csv");
-    let text = std::fs::read_to_string(&index).unwrap().replacen("ring", "box", 1);
+    let text = std::fs::read_to_string(&index)
+        .unwrap()
+        .replacen("ring", "box", 1);
     std::fs::write(&index, text).unwrap();
     let err = Dataset::load(&dir, &classes(), WINDOW).unwrap_err();
     assert!(err.to_string().contains("index.csv"), "{err}");

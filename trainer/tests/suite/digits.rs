@@ -89,6 +89,9 @@ fn digits_held_out_accuracy_reaches_the_scikit_learn_example() {
         .filter(|(p, s)| symtrust_trainer::train::argmax(p) == s.class)
         .count();
     let accuracy = right as f64 / test_half.len() as f64;
-    eprintln!("digits: held-out accuracy {accuracy:.4} after {} epochs", outcome.epochs_run);
+    eprintln!(
+        "digits: held-out accuracy {accuracy:.4} after {} epochs",
+        outcome.epochs_run
+    );
     assert!(accuracy >= 0.97, "held-out accuracy {accuracy:.4} < 0.97");
 }

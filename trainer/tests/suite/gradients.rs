@@ -27,7 +27,10 @@ fn backward_matches_finite_differences() {
     let weights = [1.0, 0.5, 2.0];
     let loss = |net: &Network| -> f64 {
         let logits = net.forward(&x, None).unwrap();
-        weighted_loss(&logits, &labels, &weights).unwrap().to_scalar::<f64>().unwrap()
+        weighted_loss(&logits, &labels, &weights)
+            .unwrap()
+            .to_scalar::<f64>()
+            .unwrap()
     };
     let grads = weighted_loss(&net.forward(&x, None).unwrap(), &labels, &weights)
         .unwrap()
@@ -37,27 +40,55 @@ fn backward_matches_finite_differences() {
     let mut checked = 0;
     let mut failures = Vec::new();
     for (p, var) in net.params.iter().enumerate() {
-        let analytic = grads.get(var.as_tensor()).unwrap().flatten_all().unwrap().to_vec1::<f64>().unwrap();
-        let values = var.as_tensor().flatten_all().unwrap().to_vec1::<f64>().unwrap();
+        let analytic = grads
+            .get(var.as_tensor())
+            .unwrap()
+            .flatten_all()
+            .unwrap()
+            .to_vec1::<f64>()
+            .unwrap();
+        let values = var
+            .as_tensor()
+            .flatten_all()
+            .unwrap()
+            .to_vec1::<f64>()
+            .unwrap();
         let shape = var.as_tensor().dims().to_vec();
         for i in 0..values.len() {
             let mut plus = values.clone();
             plus[i] += eps;
-            var.set(&Tensor::from_vec(plus, shape.as_slice(), &Device::Cpu).unwrap()).unwrap();
+            var.set(&Tensor::from_vec(plus, shape.as_slice(), &Device::Cpu).unwrap())
+                .unwrap();
             let up = loss(&net);
             let mut minus = values.clone();
             minus[i] -= eps;
-            var.set(&Tensor::from_vec(minus, shape.as_slice(), &Device::Cpu).unwrap()).unwrap();
+            var.set(&Tensor::from_vec(minus, shape.as_slice(), &Device::Cpu).unwrap())
+                .unwrap();
             let down = loss(&net);
-            var.set(&Tensor::from_vec(values.clone(), shape.as_slice(), &Device::Cpu).unwrap()).unwrap();
+            var.set(&Tensor::from_vec(values.clone(), shape.as_slice(), &Device::Cpu).unwrap())
+                .unwrap();
             let numeric = (up - down) / (2.0 * eps);
             let err = (analytic[i] - numeric).abs();
             if err > 1e-7 + 1e-5 * numeric.abs() {
-                failures.push(format!("parameter {p} entry {i}: backward {} vs finite difference {numeric}", analytic[i]));
+                failures.push(format!(
+                    "parameter {p} entry {i}: backward {} vs finite difference {numeric}",
+                    analytic[i]
+                ));
             }
             checked += 1;
         }
     }
-    assert!(failures.is_empty(), "{} mismatches:\n{}", failures.len(), failures.join("\n"));
-    assert_eq!(checked, arch.parameter_shapes().iter().map(|(_, s)| s.iter().product::<usize>()).sum::<usize>());
+    assert!(
+        failures.is_empty(),
+        "{} mismatches:\n{}",
+        failures.len(),
+        failures.join("\n")
+    );
+    assert_eq!(
+        checked,
+        arch.parameter_shapes()
+            .iter()
+            .map(|(_, s)| s.iter().product::<usize>())
+            .sum::<usize>()
+    );
 }

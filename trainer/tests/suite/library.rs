@@ -6,8 +6,8 @@
 use std::path::{Path, PathBuf};
 use symtrust_labels::SeededRng;
 use symtrust_labels::crops::{
-    BACKGROUND, CROP_SCHEMA_VERSION, CropCounts, CropKind, CropManifest, CropRecord,
-    CropSettings, CropSplit, ManifestSheet,
+    BACKGROUND, CROP_SCHEMA_VERSION, CropCounts, CropKind, CropManifest, CropRecord, CropSettings,
+    CropSplit, ManifestSheet,
 };
 use symtrust_labels::hash::sha256_hex;
 use symtrust_labels::site::{ClassSpec, ModelSettings};
@@ -57,7 +57,10 @@ pub fn draw(class: usize, rng: &mut SeededRng) -> Vec<u8> {
         0 => {
             for t in 0..96 {
                 let a = t as f64 / 96.0 * std::f64::consts::TAU;
-                let (x, y) = (cx as f64 + r as f64 * a.cos(), cy as f64 + r as f64 * a.sin());
+                let (x, y) = (
+                    cx as f64 + r as f64 * a.cos(),
+                    cy as f64 + r as f64 * a.sin(),
+                );
                 put(&mut img, s, x.round() as i64, y.round() as i64);
             }
         }
@@ -102,12 +105,20 @@ fn png(pixels: &[u8]) -> Vec<u8> {
 /// Writes a library under `crops_dir` with `per_class` training crops per
 /// symbol class (twice that of background) on four sheets, and a quarter of
 /// that on a validation sheet; `skip_class` leaves one class out of training.
-pub fn write_library(crops_dir: &Path, seed: u64, per_class: usize, skip_class: Option<usize>) -> PathBuf {
+pub fn write_library(
+    crops_dir: &Path,
+    seed: u64,
+    per_class: usize,
+    skip_class: Option<usize>,
+) -> PathBuf {
     let names: Vec<String> = classes().iter().map(|c| c.name.clone()).collect();
     let mut rng = SeededRng::new(seed);
     let mut records = Vec::new();
     let mut images = Vec::new();
-    for (split, count) in [(CropSplit::Train, per_class), (CropSplit::Validation, per_class / 4)] {
+    for (split, count) in [
+        (CropSplit::Train, per_class),
+        (CropSplit::Validation, per_class / 4),
+    ] {
         for class in 0..4 {
             let n = if class == 3 { 2 * count } else { count };
             if split == CropSplit::Train && skip_class == Some(class) {
@@ -123,13 +134,20 @@ pub fn write_library(crops_dir: &Path, seed: u64, per_class: usize, skip_class: 
                 };
                 records.push(CropRecord {
                     file: file.clone(),
-                    class: if class == 3 { BACKGROUND.to_string() } else { names[class].clone() },
+                    class: names
+                        .get(class)
+                        .cloned()
+                        .unwrap_or_else(|| BACKGROUND.to_string()),
                     sheet,
                     x: 0,
                     y: 0,
                     w: WINDOW,
                     h: WINDOW,
-                    kind: if class == 3 { CropKind::Negative } else { CropKind::Positive },
+                    kind: if class == 3 {
+                        CropKind::Negative
+                    } else {
+                        CropKind::Positive
+                    },
                     split,
                     symbol: String::new(),
                     sha256: sha256_hex(&bytes),
@@ -159,13 +177,23 @@ pub fn write_library(crops_dir: &Path, seed: u64, per_class: usize, skip_class: 
             sheet_sha256: sha256_hex(format!("sheet {i}").as_bytes()),
             labels_sha256: sha256_hex(format!("labels {i}").as_bytes()),
             labels_revision: 1,
-            split: if i == 5 { CropSplit::Validation } else { CropSplit::Train },
+            split: if i == 5 {
+                CropSplit::Validation
+            } else {
+                CropSplit::Train
+            },
         })
         .collect();
     let id = CropManifest::compute_id(seed, &names, &settings, &sheets, &[]);
     let counts = CropCounts {
-        positive: records.iter().filter(|r| r.kind == CropKind::Positive).count(),
-        negative: records.iter().filter(|r| r.kind == CropKind::Negative).count(),
+        positive: records
+            .iter()
+            .filter(|r| r.kind == CropKind::Positive)
+            .count(),
+        negative: records
+            .iter()
+            .filter(|r| r.kind == CropKind::Negative)
+            .count(),
         hard_negative: 0,
     };
     let manifest = CropManifest {
@@ -187,6 +215,10 @@ pub fn write_library(crops_dir: &Path, seed: u64, per_class: usize, skip_class: 
         std::fs::write(dir.join(file), bytes).unwrap();
     }
     std::fs::write(dir.join("index.csv"), index).unwrap();
-    std::fs::write(dir.join("manifest.json"), serde_json::to_string_pretty(&manifest).unwrap()).unwrap();
+    std::fs::write(
+        dir.join("manifest.json"),
+        serde_json::to_string_pretty(&manifest).unwrap(),
+    )
+    .unwrap();
     dir
 }

@@ -18,9 +18,14 @@ fn classifier(arch: &Architecture, seed: u64) -> Classifier {
 /// A random sheet: noise plus a few dark strokes, so ReLUs and pools vary.
 fn sheet(width: usize, height: usize, seed: u64) -> Vec<u8> {
     let mut rng = SeededRng::new(seed);
-    let mut px: Vec<u8> = (0..width * height).map(|_| 200 + rng.below(56) as u8).collect();
+    let mut px: Vec<u8> = (0..width * height)
+        .map(|_| 200 + rng.below(56) as u8)
+        .collect();
     for _ in 0..(width + height) / 6 {
-        let (x, y) = (rng.below(width as u64) as usize, rng.below(height as u64) as usize);
+        let (x, y) = (
+            rng.below(width as u64) as usize,
+            rng.below(height as u64) as usize,
+        );
         let len = rng.below(20) as usize;
         for d in 0..len {
             if rng.chance(0.5) && x + d < width {
@@ -34,18 +39,26 @@ fn sheet(width: usize, height: usize, seed: u64) -> Vec<u8> {
 }
 
 fn crop(px: &[u8], width: usize, x: usize, y: usize, side: usize) -> Vec<u8> {
-    (y..y + side).flat_map(|r| px[r * width + x..r * width + x + side].iter().copied()).collect()
+    (y..y + side)
+        .flat_map(|r| px[r * width + x..r * width + x + side].iter().copied())
+        .collect()
 }
 
 /// Asserts every cell equals the per-window classification of its window.
 fn assert_matches_naive(clf: &Classifier, px: &[u8], width: usize, height: usize, map: &ScoreMap) {
     let side = clf.window();
-    assert_eq!((map.cols, map.rows), grid_size(width, height, side, map.stride));
+    assert_eq!(
+        (map.cols, map.rows),
+        grid_size(width, height, side, map.stride)
+    );
     let mut windows = Vec::new();
     for r in 0..map.rows {
         for c in 0..map.cols {
             let (x, y) = map.window_origin(r, c);
-            assert!(x + side <= width && y + side <= height, "cell ({r}, {c}) is inside the sheet");
+            assert!(
+                x + side <= width && y + side <= height,
+                "cell ({r}, {c}) is inside the sheet"
+            );
             windows.push(crop(px, width, x, y, side));
         }
     }
@@ -55,7 +68,10 @@ fn assert_matches_naive(clf: &Classifier, px: &[u8], width: usize, height: usize
         for c in 0..map.cols {
             let want = &naive[r * map.cols + c];
             for (k, (a, b)) in map.cell(r, c).iter().zip(want).enumerate() {
-                assert!((a - b).abs() <= 1e-4, "cell ({r}, {c}) class {k}: map {a} vs window {b}");
+                assert!(
+                    (a - b).abs() <= 1e-4,
+                    "cell ({r}, {c}) class {k}: map {a} vs window {b}"
+                );
             }
         }
     }
@@ -115,11 +131,23 @@ fn default_network_score_map_matches_and_aligns_at_the_edges() {
     let clf = classifier(&arch, 5);
     let (w, h) = (131, 108);
     let px = sheet(w, h, 6);
-    let map = clf.score_map(&px, w, h, &ScoreMapOptions::native(&clf)).unwrap();
+    let map = clf
+        .score_map(&px, w, h, &ScoreMapOptions::native(&clf))
+        .unwrap();
     assert_eq!((map.cols, map.rows), (4, 2));
     assert_eq!(map.window_origin(1, 3), (24, 8));
     assert_matches_naive(&clf, &px, w, h, &map);
-    let fine = clf.score_map(&px, w, h, &ScoreMapOptions { stride: 2, tile_cells: 1 }).unwrap();
+    let fine = clf
+        .score_map(
+            &px,
+            w,
+            h,
+            &ScoreMapOptions {
+                stride: 2,
+                tile_cells: 1,
+            },
+        )
+        .unwrap();
     assert_eq!((fine.cols, fine.rows), (16, 5));
     assert_matches_naive(&clf, &px, w, h, &fine);
     // Cells shared by both grids agree: fine (r, c) at 4x the native index.
@@ -138,7 +166,10 @@ fn the_bottom_right_cell_sees_the_last_pixels_and_nothing_beyond() {
     // reach it may differ from a blank sheet's scores.
     // Window 46: 44 -> 22 -> 20 -> 10 -> 8 -> 4, even at every pooling, so every
     // pixel of the window reaches the features (hand calculation).
-    let arch = Architecture { window: 46, ..three_layer() };
+    let arch = Architecture {
+        window: 46,
+        ..three_layer()
+    };
     let clf = classifier(&arch, 11);
     let (w, h) = (46 + 16, 46 + 8); // exact multiples: last window ends on the last pixel
     let mut px = vec![255u8; w * h];
@@ -147,14 +178,22 @@ fn the_bottom_right_cell_sees_the_last_pixels_and_nothing_beyond() {
             px[y * w + x] = 0;
         }
     }
-    let map = clf.score_map(&px, w, h, &ScoreMapOptions::native(&clf)).unwrap();
+    let map = clf
+        .score_map(&px, w, h, &ScoreMapOptions::native(&clf))
+        .unwrap();
     assert_eq!((map.cols, map.rows), (3, 2));
     let blank = clf.classify(&[&vec![255u8; 46 * 46]]).unwrap().remove(0);
     let corner = map.cell(1, 2);
-    assert!(corner.iter().zip(&blank).any(|(a, b)| (a - b).abs() > 1e-6), "corner cell sees the ink");
+    assert!(
+        corner.iter().zip(&blank).any(|(a, b)| (a - b).abs() > 1e-6),
+        "corner cell sees the ink"
+    );
     for (r, c) in [(0, 0), (0, 2), (1, 0), (1, 1)] {
         for (a, b) in map.cell(r, c).iter().zip(&blank) {
-            assert!((a - b).abs() <= 1e-5, "cell ({r}, {c}) must not see the corner");
+            assert!(
+                (a - b).abs() <= 1e-5,
+                "cell ({r}, {c}) must not see the corner"
+            );
         }
     }
 }
@@ -163,9 +202,23 @@ fn the_bottom_right_cell_sees_the_last_pixels_and_nothing_beyond() {
 fn bad_sheets_and_strides_are_refused() {
     let clf = classifier(&two_layer(), 1);
     let px = vec![255u8; 21 * 30];
-    assert!(clf.score_map(&px, 21, 30, &ScoreMapOptions::native(&clf)).is_err());
+    assert!(
+        clf.score_map(&px, 21, 30, &ScoreMapOptions::native(&clf))
+            .is_err()
+    );
     let px = vec![255u8; 30 * 30];
-    let three = ScoreMapOptions { stride: 3, tile_cells: 8 };
-    assert!(clf.score_map(&px, 30, 30, &three).unwrap_err().to_string().contains("stride 3"));
-    assert!(clf.score_map(&px[1..], 30, 30, &ScoreMapOptions::native(&clf)).is_err());
+    let three = ScoreMapOptions {
+        stride: 3,
+        tile_cells: 8,
+    };
+    assert!(
+        clf.score_map(&px, 30, 30, &three)
+            .unwrap_err()
+            .to_string()
+            .contains("stride 3")
+    );
+    assert!(
+        clf.score_map(&px[1..], 30, 30, &ScoreMapOptions::native(&clf))
+            .is_err()
+    );
 }

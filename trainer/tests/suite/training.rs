@@ -1,8 +1,8 @@
 //! Training end to end on a generated crop library: accuracy, exact
 //! reproducibility, interruption and resume, the model folder and its card.
 
-use super::library::{classes, tiny_arch, write_library, WINDOW};
-use symtrust_trainer::card::{load_model, weights_bytes, write_model, ModelInputs, LOG_FILE};
+use super::library::{WINDOW, classes, tiny_arch, write_library};
+use symtrust_trainer::card::{LOG_FILE, ModelInputs, load_model, weights_bytes, write_model};
 use symtrust_trainer::train::{Flow, Silent, TrainObserver};
 use symtrust_trainer::{Classifier, Dataset, TrainOptions, TrainerError, train};
 
@@ -27,7 +27,11 @@ struct StopAfter {
 impl TrainObserver for StopAfter {
     fn batch_done(&mut self, _epoch: usize, _batch: usize, _loss: f64) -> Flow {
         self.seen += 1;
-        if self.seen >= self.after { Flow::Stop } else { Flow::Continue }
+        if self.seen >= self.after {
+            Flow::Stop
+        } else {
+            Flow::Continue
+        }
     }
 }
 
@@ -43,17 +47,27 @@ fn learns_the_test_symbols_reproducibly_and_writes_a_checked_model() {
 
     let a = train(&data, &arch, &opts, Some(&models), false, &mut Silent).unwrap();
     // The task is easy on purpose: a working loop must get nearly all of it.
-    assert!(a.validation.accuracy >= 0.9, "validation accuracy {}", a.validation.accuracy);
+    assert!(
+        a.validation.accuracy >= 0.9,
+        "validation accuracy {}",
+        a.validation.accuracy
+    );
     assert_eq!(a.log.len(), 8);
     assert!(a.log[7].train_loss < a.log[0].train_loss, "{:?}", a.log);
 
     // Same seed, same machine: byte-identical weights.
     let b = train(&data, &arch, &opts, None, false, &mut Silent).unwrap();
-    assert_eq!(weights_bytes(&a.network).unwrap(), weights_bytes(&b.network).unwrap());
+    assert_eq!(
+        weights_bytes(&a.network).unwrap(),
+        weights_bytes(&b.network).unwrap()
+    );
     // Another seed gives other weights (the check above can fail).
     let c = train(&data, &arch, &options(4, 1), None, false, &mut Silent).unwrap();
     let a1 = train(&data, &arch, &options(3, 1), None, false, &mut Silent).unwrap();
-    assert_ne!(weights_bytes(&a1.network).unwrap(), weights_bytes(&c.network).unwrap());
+    assert_ne!(
+        weights_bytes(&a1.network).unwrap(),
+        weights_bytes(&c.network).unwrap()
+    );
 
     let inputs = ModelInputs {
         classes: &data.classes,
@@ -64,19 +78,32 @@ fn learns_the_test_symbols_reproducibly_and_writes_a_checked_model() {
     };
     let (card, folder) = write_model(&models, &a, &inputs).unwrap();
     assert_eq!(folder, models.join(&card.id));
-    assert_eq!(card.data.crop_library, dir.file_name().unwrap().to_str().unwrap());
+    assert_eq!(
+        card.data.crop_library,
+        dir.file_name().unwrap().to_str().unwrap()
+    );
     assert_eq!(card.native_stride, 4);
     let log = std::fs::read_to_string(folder.join(LOG_FILE)).unwrap();
     assert_eq!(log.lines().count(), 9, "header plus one row per epoch");
     let (loaded_card, net) = load_model(&folder).unwrap();
-    assert_eq!((&loaded_card.id, &loaded_card.weights_sha256), (&card.id, &card.weights_sha256));
+    assert_eq!(
+        (&loaded_card.id, &loaded_card.weights_sha256),
+        (&card.id, &card.weights_sha256)
+    );
     assert_eq!(loaded_card.architecture, card.architecture);
     assert!((loaded_card.validation.macro_f1 - card.validation.macro_f1).abs() < 1e-12);
-    assert_eq!(weights_bytes(&net).unwrap(), weights_bytes(&a.network).unwrap());
+    assert_eq!(
+        weights_bytes(&net).unwrap(),
+        weights_bytes(&a.network).unwrap()
+    );
 
     // The loaded model agrees with the validation figure on the validation crops.
     let clf = Classifier::load(&folder).unwrap();
-    let windows: Vec<&[u8]> = data.validation.iter().map(|s| s.pixels.as_slice()).collect();
+    let windows: Vec<&[u8]> = data
+        .validation
+        .iter()
+        .map(|s| s.pixels.as_slice())
+        .collect();
     let probs = clf.classify(&windows).unwrap();
     let right = probs
         .iter()
@@ -100,16 +127,29 @@ fn an_interrupted_run_writes_no_model_and_resumes_to_the_same_weights() {
     let full = train(&data, &arch, &opts, None, false, &mut Silent).unwrap();
 
     // Batches per epoch: 16 * 3 + 32 = 80 crops / 16 = 5; stop in epoch 2.
-    let err = train(&data, &arch, &opts, Some(&models), false, &mut StopAfter { after: 7, seen: 0 })
-        .unwrap_err();
-    assert!(matches!(err, TrainerError::Interrupted { epochs_done: 1, .. }), "{err}");
+    let err = train(
+        &data,
+        &arch,
+        &opts,
+        Some(&models),
+        false,
+        &mut StopAfter { after: 7, seen: 0 },
+    )
+    .unwrap_err();
+    assert!(
+        matches!(err, TrainerError::Interrupted { epochs_done: 1, .. }),
+        "{err}"
+    );
     assert!(!err.is_bad_input());
     let visible: Vec<_> = std::fs::read_dir(&models)
         .unwrap()
         .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
         .filter(|n| !n.starts_with('.'))
         .collect();
-    assert!(visible.is_empty(), "nothing that looks like a model: {visible:?}");
+    assert!(
+        visible.is_empty(),
+        "nothing that looks like a model: {visible:?}"
+    );
 
     let resumed = train(&data, &arch, &opts, Some(&models), true, &mut Silent).unwrap();
     assert_eq!(resumed.log.len(), 3);
@@ -120,7 +160,15 @@ fn an_interrupted_run_writes_no_model_and_resumes_to_the_same_weights() {
     );
 
     // Other settings have no checkpoint to resume.
-    let err = train(&data, &arch, &options(6, 3), Some(&models), true, &mut Silent).unwrap_err();
+    let err = train(
+        &data,
+        &arch,
+        &options(6, 3),
+        Some(&models),
+        true,
+        &mut Silent,
+    )
+    .unwrap_err();
     assert!(matches!(err, TrainerError::NothingToResume { .. }), "{err}");
     assert!(err.is_bad_input());
 }
