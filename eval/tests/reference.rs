@@ -2,7 +2,8 @@
 //!
 //! Every expected value here comes from `tests/reference/reference.json`, written
 //! by `tests/reference/make_reference.py` with scikit-learn 1.9.1, pycocotools
-//! 2.0.11, scipy 1.17.1 and numpy 2.4.6 (the versions are also stored in the JSON
+//! 2.0.11, mean-average-precision 2024.1.5.0, scipy 1.17.1 and numpy 2.4.6 (the
+//! versions are also stored in the JSON
 //! and checked below, so a regenerated file with other versions is noticed).
 //! Tolerances: 1e-12 absolute where both sides compute the same closed formula
 //! in double precision; looser where the reference is iterative (stated at the
@@ -61,6 +62,7 @@ fn reference_file_names_its_library_versions() {
     assert_eq!(v["pycocotools"], "2.0.11");
     assert_eq!(v["scipy"], "1.17.1");
     assert_eq!(v["numpy"], "2.4.6");
+    assert_eq!(v["mean-average-precision"], "2024.1.5.0");
 }
 
 /// scikit-learn 1.9.1: confusion_matrix, precision_recall_fscore_support
@@ -385,5 +387,55 @@ fn sheet_ap_matches_cocoeval() {
             f(&row["map101"]),
             1e-12,
         );
+    }
+}
+
+/// mean-average-precision 2024.1.5.0 (its all-point interpolation, the Pascal
+/// VOC 2010 definition, with mpolicy="soft"; boxes passed in its +1 pixel
+/// convention so areas agree, see make_reference.py) on the same six sheets:
+/// per-class all-point AP and the all-point mAP at every IoU of our sweep.
+#[test]
+fn sheet_all_point_ap_matches_mean_average_precision() {
+    let r = reference();
+    let c = &r["coco"];
+    let names: Vec<String> = c["classes"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_str().unwrap().to_string())
+        .collect();
+    let cfg = SheetEvalConfig {
+        bootstrap: None,
+        ..SheetEvalConfig::default()
+    };
+    let e = evaluate_sheets(&coco_sheets(c), &names, &cfg).unwrap();
+    for row in r["voc"]["iou_sweep"].as_array().unwrap() {
+        let t = f(&row["min_iou"]);
+        let ours = e
+            .iou_sweep
+            .iter()
+            .find(|s| (s.min_iou - t).abs() < 1e-12)
+            .unwrap();
+        close(
+            &format!("all-point mAP at IoU {t}"),
+            ours.map_all_point.unwrap(),
+            f(&row["map_all_point"]),
+            1e-12,
+        );
+        if (t - 0.5).abs() < 1e-12 {
+            for (k, want) in row["per_class_ap_all_point"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .enumerate()
+            {
+                close_opt(
+                    &format!("{} all-point AP at IoU 0.5", names[k]),
+                    e.per_class[k].figures.ap.all_point,
+                    opt(want),
+                    1e-12,
+                );
+            }
+        }
     }
 }

@@ -4,7 +4,7 @@ that eval/tests/reference.rs checks symtrust-eval against.
 Run from the repository root in a throwaway virtual environment:
 
     python3 -m venv /tmp/refenv
-    /tmp/refenv/bin/pip install scikit-learn pycocotools scipy numpy
+    /tmp/refenv/bin/pip install scikit-learn pycocotools scipy numpy mean-average-precision
     /tmp/refenv/bin/python eval/tests/reference/make_reference.py
 
 All inputs are synthetic (a fictional plant's symbol classes, random boxes and
@@ -30,6 +30,7 @@ from pycocotools.cocoeval import COCOeval
 from scipy.stats import binomtest, chi2
 from sklearn.calibration import calibration_curve
 from sklearn.linear_model import LogisticRegression
+from mean_average_precision import MetricBuilder
 from sklearn.metrics import (
     average_precision_score,
     brier_score_loss,
@@ -158,6 +159,8 @@ def quantile_reference(rng):
 
 COCO_CLASSES = ["gate_valve", "pump", "instrument_bubble", "reducer"]
 SWEEP = [0.5, 0.6, 0.7, 0.8, 0.9]
+# Every IoU the generated data must keep clear of (the full symtrust sweep).
+GUARDED = [0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, 0.9]
 
 
 def iou(a, b):
@@ -209,7 +212,7 @@ def sheets_are_unambiguous(sheets):
     for s in sheets:
         for d in s["detections"]:
             ious = sorted(iou(d["bbox"], g["bbox"]) for g in s["truths"])
-            if any(abs(i - t) < 1e-6 for i in ious for t in SWEEP):
+            if any(abs(i - t) < 1e-6 for i in ious for t in GUARDED):
                 return False
             if any(a > 0 and abs(a - b) < 1e-9 for a, b in zip(ious, ious[1:])):
                 return False  # exactly equal IoUs: tie rules differ
@@ -265,12 +268,49 @@ def coco_reference(rng):
         per = [class_ap(ti, k) for k in range(len(COCO_CLASSES))]
         defined = [v for v in per if v is not None]
         sweep.append({"min_iou": t, "per_class_ap101": per, "map101": float(np.mean(defined))})
-    return {
+    return sheets, {
         "classes": COCO_CLASSES,
         "sheets": sheets,
         "stats_1_ap50_101point": float(ev.stats[1]),
         "iou_sweep": sweep,
     }
+
+
+def voc_reference(sheets):
+    """All-point interpolated AP (Pascal VOC 2010 on) from the
+    mean-average-precision package on the same sheets as the COCO check.
+
+    The package uses the VOC devkit's +1 pixel box convention, so boxes are
+    passed as [x, y, x + w - 1, y + h - 1], which makes its areas and
+    intersections equal to symtrust's half-open [x, x + w) boxes. mpolicy="soft"
+    is its COCO-style matching (best-IoU unmatched ground truth), the rule
+    symtrust uses; its strict IoU > t equals our IoU >= t here because no IoU
+    lies within 1e-6 of a threshold. _evaluate_class is called directly because
+    value() stores APs as float32 (metric_fn is the
+    evaluator behind the default adapter).
+    """
+    metric = MetricBuilder.build_evaluation_metric("map_2d", async_mode=False, num_classes=len(COCO_CLASSES))
+    for s in sheets:
+        def corners(b):
+            return [b[0], b[1], b[0] + b[2] - 1, b[1] + b[3] - 1]
+
+        preds = np.array(
+            [corners(d["bbox"]) + [COCO_CLASSES.index(d["class"]), d["score"]] for d in s["detections"]], dtype=np.float64
+        ).reshape(-1, 6)
+        gt = np.array(
+            [corners(g["bbox"]) + [COCO_CLASSES.index(g["class"]), 0, 0] for g in s["truths"]], dtype=np.float64
+        ).reshape(-1, 7)
+        metric.add(preds, gt)
+    has_truth = [any(g["class"] == c for s in sheets for g in s["truths"]) for c in COCO_CLASSES]
+    sweep = []
+    for t in GUARDED:
+        per = []
+        for k in range(len(COCO_CLASSES)):
+            ap, _, _ = metric.metric_fn._evaluate_class(k, t, None, "soft")
+            per.append(float(ap) if has_truth[k] else None)
+        defined = [v for v in per if v is not None]
+        sweep.append({"min_iou": t, "per_class_ap_all_point": per, "map_all_point": float(np.mean(defined))})
+    return {"iou_sweep": sweep}
 
 
 def main():
@@ -289,8 +329,10 @@ def main():
         "platt": platt_reference(rng),
         "mcnemar": mcnemar_reference(),
         "quantile": quantile_reference(rng),
-        "coco": coco_reference(rng),
     }
+    sheets, out["coco"] = coco_reference(rng)
+    out["voc"] = voc_reference(sheets)
+    out["versions"]["mean-average-precision"] = version("mean-average-precision")
     with open(OUT, "w") as f:
         json.dump(out, f, indent=1)
         f.write("\n")

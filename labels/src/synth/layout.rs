@@ -7,7 +7,8 @@
 //! and a vent header along the top. Instrument loops (transmitter, controller,
 //! gauges, alarms) are placed around their process points with dashed signal
 //! lines. Every placement checks a list of occupied boxes so labelled symbols never
-//! overlap each other, the title block or the legend.
+//! overlap each other, the title block or the legend. Instrument loops live in
+//! `layout/instruments.rs`, look-alike distractors in `layout/distractors.rs`.
 
 use super::font::{self, Anchor};
 use super::raster::{Place, Prim, union_extent};
