@@ -287,3 +287,17 @@ fn demo_runs_the_job_on_the_synthetic_plant() {
     assert!(tmp.path().join("d/crops").join(id).join("manifest.json").is_file());
     assert!(v["counts"]["positive"].as_u64().unwrap() > 10);
 }
+
+#[test]
+fn labels_check_passes_on_the_synthetic_plant() {
+    let tmp = tempfile::tempdir().unwrap();
+    synthetic_site(tmp.path());
+    let run = symtrust(tmp.path(), &["labels", "check", "--site", "site", "--json"]).expect_code(0);
+    let v = run.json();
+    assert_eq!(v["errors"], 0, "{}", run.stdout);
+    // Only "too few examples" warnings are expected on a 3-sheet plant.
+    for f in v["findings"].as_array().unwrap() {
+        assert_eq!(f["severity"], "warning", "{f}");
+        assert!(f["symbol"].is_null(), "no symbol-level finding on exact ground truth: {f}");
+    }
+}

@@ -45,6 +45,7 @@ pub fn write_plant(
     on_sheet: &dyn Fn(&str),
 ) -> Result<Site> {
     let synth_config = SynthConfig::new(req.style, req.seed);
+    synth_config.validate()?;
     let classes: Vec<ClassSpec> = synth::classes(req.style)
         .into_iter()
         .map(|c| ClassSpec {
