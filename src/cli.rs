@@ -54,9 +54,7 @@ pub enum Command {
     /// Build crop libraries.
     Crops(cmd::crops::CropsArgs),
     /// Train a symbol classifier on a crop library and write `models/<id>/`.
-    #[command(
-        after_help = "Example:\n  symtrust train --site ./north-unit --epochs 20 --seed 7"
-    )]
+    #[command(after_help = "Example:\n  symtrust train --site ./north-unit --epochs 20 --seed 7")]
     Train(cmd::train::TrainArgs),
     /// Run the whole job on the built-in synthetic plant.
     #[command(after_help = "Example:\n  symtrust demo --out ./symtrust-demo")]

@@ -280,11 +280,21 @@ fn every_command_has_help_with_an_example() {
 #[test]
 fn demo_runs_the_job_on_the_synthetic_plant() {
     let tmp = tempfile::tempdir().unwrap();
-    let run = symtrust(tmp.path(), &["demo", "--out", "d", "--sheets", "2", "--json"]).expect_code(0);
+    let run = symtrust(
+        tmp.path(),
+        &["demo", "--out", "d", "--sheets", "2", "--json"],
+    )
+    .expect_code(0);
     let v = run.json();
     assert_eq!(v["held_out"], serde_json::json!(["fp-a-0001"]));
     let id = v["crop_library"].as_str().unwrap();
-    assert!(tmp.path().join("d/crops").join(id).join("manifest.json").is_file());
+    assert!(
+        tmp.path()
+            .join("d/crops")
+            .join(id)
+            .join("manifest.json")
+            .is_file()
+    );
     assert!(v["counts"]["positive"].as_u64().unwrap() > 10);
 }
 
@@ -298,6 +308,9 @@ fn labels_check_passes_on_the_synthetic_plant() {
     // Only "too few examples" warnings are expected on a 3-sheet plant.
     for f in v["findings"].as_array().unwrap() {
         assert_eq!(f["severity"], "warning", "{f}");
-        assert!(f["symbol"].is_null(), "no symbol-level finding on exact ground truth: {f}");
+        assert!(
+            f["symbol"].is_null(),
+            "no symbol-level finding on exact ground truth: {f}"
+        );
     }
 }
