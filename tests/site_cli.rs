@@ -314,3 +314,36 @@ fn labels_check_passes_on_the_synthetic_plant() {
         );
     }
 }
+
+#[test]
+fn train_on_the_synthetic_plant_writes_a_checked_model() {
+    let tmp = tempfile::tempdir().unwrap();
+    let site = synthetic_site(tmp.path());
+    symtrust(tmp.path(), &["crops", "build", "--site", "site", "--quiet"]).expect_code(0);
+    let run = symtrust(
+        tmp.path(),
+        &["train", "--site", "site", "--epochs", "1", "--quiet", "--json"],
+    )
+    .expect_code(0);
+    let card = run.json();
+    let id = card["id"].as_str().unwrap();
+    let dir = site.join("models").join(id);
+    let weights = std::fs::read(dir.join("weights.safetensors")).unwrap();
+    assert_eq!(
+        card["weights_sha256"].as_str().unwrap(),
+        symtrust_labels::hash::sha256_hex(&weights),
+        "the card's hash is the weights' SHA-256"
+    );
+    assert_eq!(card["classes"].as_array().unwrap().last().unwrap(), "background");
+    // A held-out sheet never reaches training: the library the model names has none.
+    let lib = symtrust_labels::crops::CropLibrary::open(
+        &site.join("crops").join(card["data"]["crop_library"].as_str().unwrap()),
+    )
+    .unwrap();
+    assert!(lib.records.iter().all(|r| r.sheet != "fp-a-0002"));
+    // Training without a crop library is bad input, named.
+    let tmp2 = tempfile::tempdir().unwrap();
+    synthetic_site(tmp2.path());
+    let bad = symtrust(tmp2.path(), &["train", "--site", "site", "--quiet"]).expect_code(2);
+    assert!(bad.stderr.contains("crops"), "{}", bad.stderr);
+}
