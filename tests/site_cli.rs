@@ -322,7 +322,9 @@ fn train_on_the_synthetic_plant_writes_a_checked_model() {
     symtrust(tmp.path(), &["crops", "build", "--site", "site", "--quiet"]).expect_code(0);
     let run = symtrust(
         tmp.path(),
-        &["train", "--site", "site", "--epochs", "1", "--quiet", "--json"],
+        &[
+            "train", "--site", "site", "--epochs", "1", "--quiet", "--json",
+        ],
     )
     .expect_code(0);
     let card = run.json();
@@ -334,10 +336,15 @@ fn train_on_the_synthetic_plant_writes_a_checked_model() {
         symtrust_labels::hash::sha256_hex(&weights),
         "the card's hash is the weights' SHA-256"
     );
-    assert_eq!(card["classes"].as_array().unwrap().last().unwrap(), "background");
+    assert_eq!(
+        card["classes"].as_array().unwrap().last().unwrap(),
+        "background"
+    );
     // A held-out sheet never reaches training: the library the model names has none.
     let lib = symtrust_labels::crops::CropLibrary::open(
-        &site.join("crops").join(card["data"]["crop_library"].as_str().unwrap()),
+        &site
+            .join("crops")
+            .join(card["data"]["crop_library"].as_str().unwrap()),
     )
     .unwrap();
     assert!(lib.records.iter().all(|r| r.sheet != "fp-a-0002"));
