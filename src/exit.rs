@@ -1,5 +1,6 @@
 //! Exit codes of every command, and how an error maps to one.
 
+use crate::context;
 use symtrust_labels::LabelError;
 
 /// Success.
@@ -29,5 +30,3 @@ pub fn code_for(err: &anyhow::Error) -> u8 {
     }
     FAILURE
 }
-
-use crate::context;

@@ -322,10 +322,11 @@ pub fn render_document(doc: &LabelDocument) -> Vec<u8> {
 pub(crate) mod tests {
     use super::*;
 
-    pub(crate) fn sample_doc() -> LabelDocument {
-        let mut doc = LabelDocument::new(SheetRecord {
-            id: "s1".into(),
-            file: "sheets/s1.png".into(),
+    /// A registered 1000 x 800 sheet at 200 dpi, for tests.
+    pub(crate) fn sample_sheet(id: &str) -> SheetRecord {
+        SheetRecord {
+            id: id.into(),
+            file: format!("sheets/{id}.png"),
             sha256: "0".repeat(64),
             source_width: 1000,
             source_height: 800,
@@ -334,7 +335,11 @@ pub(crate) mod tests {
             width: 1000,
             height: 800,
             dpi: 200.0,
-        });
+        }
+    }
+
+    pub(crate) fn sample_doc() -> LabelDocument {
+        let mut doc = LabelDocument::new(sample_sheet("s1"));
         doc.symbols.push(Symbol {
             id: "s0001".into(),
             class: "pump".into(),

@@ -686,7 +686,7 @@ fn normalise(file: &str) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::document::{DpiSource, Origin, SheetRecord, Symbol};
+    use crate::document::{Origin, Symbol};
     use crate::site::ClassSpec;
     use proptest::prelude::*;
 
@@ -727,18 +727,7 @@ mod tests {
     }
 
     fn doc(symbols: Vec<Symbol>) -> LabelDocument {
-        let mut d = LabelDocument::new(SheetRecord {
-            id: "fp-1".into(),
-            file: "sheets/fp-1.png".into(),
-            sha256: "0".repeat(64),
-            source_width: 1000,
-            source_height: 800,
-            source_dpi: 200.0,
-            dpi_source: DpiSource::FileMetadata,
-            width: 1000,
-            height: 800,
-            dpi: 200.0,
-        });
+        let mut d = LabelDocument::new(crate::document::tests::sample_sheet("fp-1"));
         d.symbols = symbols;
         d
     }

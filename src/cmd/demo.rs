@@ -60,14 +60,15 @@ pub fn run(ctx: &Ctx, args: &DemoArgs) -> anyhow::Result<u8> {
         }))?;
     } else {
         ctx.say(format!(
-            "done: site {}, crop library {} ({} positives, {} negatives); held-out sheets {} are kept for evaluation.\nNext: look at {}/images, run `symtrust labels check --site {}`.",
-            site.root.display(),
-            m.id,
-            m.counts.positive,
-            m.counts.negative,
-            m.held_out.join(", "),
-            outcome.library.dir.display(),
-            site.root.display()
+            "done: site {site}, crop library {id} ({pos} positives, {neg} negatives); held out for evaluation: {held}.\n\
+             Next: look at {dir}/images, run `symtrust labels check --site {site}`, then\n\
+             `symtrust train --site {site} --epochs 3` (about 80 s per epoch on two cores with the current kernels).",
+            site = site.root.display(),
+            id = m.id,
+            pos = m.counts.positive,
+            neg = m.counts.negative,
+            held = m.held_out.join(", "),
+            dir = outcome.library.dir.display(),
         ));
     }
     Ok(exit::OK)

@@ -141,7 +141,7 @@ pub fn export(site: &Site, format: Format, out: &Path) -> Result<ExportSummary> 
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::document::{DpiSource, Origin, SheetRecord, Symbol};
+    use crate::document::{Origin, Symbol};
     use crate::site::{ClassSpec, SiteConfig};
     use proptest::prelude::*;
 
@@ -156,18 +156,7 @@ mod tests {
     }
 
     fn sheet(id: &str) -> LabelDocument {
-        LabelDocument::new(SheetRecord {
-            id: id.into(),
-            file: format!("sheets/{id}.png"),
-            sha256: "0".repeat(64),
-            source_width: 1000,
-            source_height: 800,
-            source_dpi: 200.0,
-            dpi_source: DpiSource::FileMetadata,
-            width: 1000,
-            height: 800,
-            dpi: 200.0,
-        })
+        LabelDocument::new(crate::document::tests::sample_sheet(id))
     }
 
     /// A site whose sheets `fp-1` and `fp-2` are registered with these symbols.
