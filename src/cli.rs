@@ -56,6 +56,11 @@ pub enum Command {
     /// Train a symbol classifier on a crop library and write `models/<id>/`.
     #[command(after_help = "Example:\n  symtrust train --site ./north-unit --epochs 20 --seed 7")]
     Train(cmd::train::TrainArgs),
+    /// Sweep a model over whole sheets and write the detections (CSV or JSON).
+    #[command(
+        after_help = "Example:\n  symtrust detect --site ./north-unit --model models/20261201T101500-3fa2c1d0 --out found.csv fp-a-0007"
+    )]
+    Detect(cmd::detect::DetectArgs),
     /// Run the whole job on the built-in synthetic plant.
     #[command(after_help = "Example:\n  symtrust demo --out ./symtrust-demo")]
     Demo(cmd::demo::DemoArgs),
@@ -71,5 +76,6 @@ pub fn dispatch(ctx: &Ctx, command: Command) -> anyhow::Result<u8> {
         Command::Crops(args) => cmd::crops::run(ctx, &args),
         Command::Train(args) => cmd::train::run(ctx, &args),
         Command::Demo(args) => cmd::demo::run(ctx, &args),
+        Command::Detect(args) => cmd::detect::run(ctx, &args),
     }
 }

@@ -24,6 +24,9 @@ pub fn code_for(err: &anyhow::Error) -> u8 {
         if let Some(e) = cause.downcast_ref::<symtrust_trainer::TrainerError>() {
             return if e.is_bad_input() { BAD_INPUT } else { FAILURE };
         }
+        if cause.downcast_ref::<symtrust_eval::EvalError>().is_some() {
+            return BAD_INPUT;
+        }
         if cause.downcast_ref::<context::UsageError>().is_some() {
             return BAD_INPUT;
         }

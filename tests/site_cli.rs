@@ -269,6 +269,8 @@ fn every_command_has_help_with_an_example() {
         vec!["sheets", "add", "--help"],
         vec!["crops", "build", "--help"],
         vec!["demo", "--help"],
+        vec!["detect", "--help"],
+        vec!["train", "--help"],
     ] {
         let run = symtrust(tmp.path(), &cmd).expect_code(0);
         assert!(run.stdout.contains("Example"), "{cmd:?}:\n{}", run.stdout);
@@ -348,6 +350,92 @@ fn train_on_the_synthetic_plant_writes_a_checked_model() {
     )
     .unwrap();
     assert!(lib.records.iter().all(|r| r.sheet != "fp-a-0002"));
+
+    // Sweep the model over a training sheet and the held-out sheet.
+    let model = format!("site/models/{id}");
+    let det = symtrust(
+        tmp.path(),
+        &[
+            "detect",
+            "--site",
+            "site",
+            "--model",
+            &model,
+            "--out",
+            "found.csv",
+            "--min-score",
+            "0.3",
+            "fp-a-0000",
+            "fp-a-0002",
+            "--quiet",
+            "--json",
+        ],
+    )
+    .expect_code(0);
+    assert_eq!(det.json()["model"], card["id"]);
+    let set = symtrust_labels::detections::read_detections(&tmp.path().join("found.csv")).unwrap();
+    let doc: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(site.join("labels/fp-a-0000.json")).unwrap())
+            .unwrap();
+    let (w, h) = (
+        doc["sheet"]["width"].as_f64().unwrap(),
+        doc["sheet"]["height"].as_f64().unwrap(),
+    );
+    for d in &set.detections {
+        assert!(d.sheet == "fp-a-0000" || d.sheet == "fp-a-0002");
+        assert!((0.3..=1.0).contains(&d.score), "{d:?}");
+        let (cx, cy) = d.bbox().center();
+        assert!((0.0..w).contains(&cx) && (0.0..h).contains(&cy), "{d:?}");
+        // No detection centre inside an ignore region (title block, legend).
+        for r in doc["ignore"].as_array().unwrap() {
+            let b = &r["box"];
+            let (x, y) = (b["x"].as_f64().unwrap(), b["y"].as_f64().unwrap());
+            let inside = cx >= x
+                && cx < x + b["w"].as_f64().unwrap()
+                && cy >= y
+                && cy < y + b["h"].as_f64().unwrap();
+            assert!(!(inside && d.sheet == "fp-a-0000"), "{d:?} in {r}");
+        }
+    }
+    // The file feeds hard-negative mining; detections on the held-out sheet are dropped.
+    let held = set
+        .detections
+        .iter()
+        .filter(|d| d.sheet == "fp-a-0002")
+        .count();
+    let mined = symtrust(
+        tmp.path(),
+        &[
+            "crops",
+            "build",
+            "--site",
+            "site",
+            "--hard-negatives",
+            "found.csv",
+            "--quiet",
+            "--json",
+        ],
+    )
+    .expect_code(0);
+    assert_eq!(mined.json()["dropped_held_out_detections"], held);
+    // An unregistered sheet is bad input.
+    let bad = symtrust(
+        tmp.path(),
+        &[
+            "detect",
+            "--site",
+            "site",
+            "--model",
+            &model,
+            "--out",
+            "x.csv",
+            "no-such-sheet",
+        ],
+    )
+    .expect_code(2);
+    assert!(bad.stderr.contains("no-such-sheet"), "{}", bad.stderr);
+    assert!(!tmp.path().join("x.csv").exists());
+
     // Training without a crop library is bad input, named.
     let tmp2 = tempfile::tempdir().unwrap();
     synthetic_site(tmp2.path());

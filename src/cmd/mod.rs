@@ -2,6 +2,7 @@
 
 pub mod crops;
 pub mod demo;
+pub mod detect;
 pub mod init;
 pub mod labels;
 pub mod sheets;
