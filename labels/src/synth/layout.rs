@@ -850,12 +850,7 @@ impl Builder<'_> {
         let st = self.st;
         let runs = self.runs.clone();
         for (a, b) in runs {
-            let horizontal = (a.1 - b.1).abs() < 1e-9;
-            let len = if horizontal {
-                (b.0 - a.0).abs()
-            } else {
-                (b.1 - a.1).abs()
-            };
+            let (horizontal, len) = run_span(a, b);
             if len < 55.0 || !self.rng.chance(0.8) {
                 continue;
             }
@@ -949,4 +944,15 @@ impl Builder<'_> {
             }
         }
     }
+}
+
+/// Whether an orthogonal run from `a` to `b` is horizontal, and its length in mm.
+pub(super) fn run_span(a: (f64, f64), b: (f64, f64)) -> (bool, f64) {
+    let horizontal = (a.1 - b.1).abs() < 1e-9;
+    let len = if horizontal {
+        (b.0 - a.0).abs()
+    } else {
+        (b.1 - a.1).abs()
+    };
+    (horizontal, len)
 }

@@ -222,12 +222,7 @@ impl Builder<'_> {
         let rad = st.bubble_diameter_mm / 2.0;
         let runs = self.runs.clone();
         for (a, b) in runs {
-            let horizontal = (a.1 - b.1).abs() < 1e-9;
-            let len = if horizontal {
-                (b.0 - a.0).abs()
-            } else {
-                (b.1 - a.1).abs()
-            };
+            let (horizontal, len) = super::run_span(a, b);
             if len < 30.0 || !self.rng.chance(0.75) {
                 continue;
             }
