@@ -99,12 +99,20 @@ pub enum Origin {
         /// The file or generator it came from.
         source: String,
     },
-    /// Proposed by a model.
+    /// Proposed by a model (`symtrust detect --propose`).
     Proposed {
         /// The model id.
         model: String,
         /// The model's score for it.
         score: f64,
+        /// The class the model proposed; the symbol's own class may since have been
+        /// corrected by a person. Absent in documents written before it was recorded.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        proposed_class: Option<String>,
+        /// The box the model proposed; absent in documents written before it was
+        /// recorded.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        proposed_box: Option<BBox>,
     },
 }
 

@@ -12,6 +12,7 @@ pub mod geometry;
 pub mod hash;
 pub mod interchange;
 pub mod plant;
+pub mod proposals;
 pub mod qa;
 pub mod raster;
 pub mod rng;
