@@ -29,10 +29,10 @@ pub struct BootstrapConfig {
 }
 
 impl Default for BootstrapConfig {
-    /// 2000 replicates, seed 0, 95 % (common practice).
+    /// 1000 replicates, seed 0, 95 % (common practice).
     fn default() -> Self {
         Self {
-            resamples: 2000,
+            resamples: 1000,
             seed: 0,
             level: 0.95,
         }

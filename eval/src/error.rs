@@ -91,6 +91,12 @@ pub enum EvalError {
         /// The repeated id.
         sheet: String,
     },
+    /// Shard records that are not the shards of one run.
+    #[error("shard records do not fit together: {what}")]
+    ShardMismatch {
+        /// What differs or is missing.
+        what: String,
+    },
     /// An input that must not be empty is empty.
     #[error("{what} is empty")]
     Empty {

@@ -21,14 +21,17 @@ pub mod compare;
 pub mod confusion;
 pub mod crop_eval;
 pub mod error;
+pub mod match_log;
 pub mod matching;
 pub mod nms;
 pub mod operating;
 pub mod peaks;
 pub mod pr;
+pub mod record;
 pub mod roc;
 pub mod sheet_eval;
 pub mod sheets;
 pub mod special;
+pub mod statement;
 
 pub use error::{EvalError, Result};

@@ -100,7 +100,7 @@ pub struct SheetEvalConfig {
 
 impl Default for SheetEvalConfig {
     /// IoU >= 0.5, F1-max operating point, 0.9 required recall and precision,
-    /// 10 calibration bins, 2000-replicate 95 % bootstrap (common practice).
+    /// 10 calibration bins, 1000-replicate 95 % bootstrap (common practice).
     fn default() -> Self {
         Self {
             criterion: MatchCriterion::default(),
@@ -214,6 +214,43 @@ pub struct TrustIntervals {
     pub false_alarms_per_sheet: Option<Interval>,
     /// Mean misses per sheet at the operating threshold.
     pub misses_per_sheet: Option<Interval>,
+    /// Micro F1 at the operating threshold.
+    #[serde(default)]
+    pub f1_at_operating: Option<Interval>,
+}
+
+/// One class at the global operating threshold: counts, ratios, and (when the
+/// bootstrap ran) their intervals over sheets.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ClassOperating {
+    /// Class name.
+    pub class: String,
+    /// Ground-truth symbols of this class.
+    pub n_truths: u64,
+    /// Detections of this class kept at the threshold.
+    pub n_kept: u64,
+    /// Kept detections that found a symbol of this class.
+    pub true_positives: u64,
+    /// Kept detections that did not.
+    pub false_alarms: u64,
+    /// Symbols of this class not found by a kept detection.
+    pub misses: u64,
+    /// `true_positives / n_kept`.
+    pub precision: Option<f64>,
+    /// `true_positives / n_truths`.
+    pub recall: Option<f64>,
+    /// Harmonic mean of the two.
+    pub f1: Option<f64>,
+    /// Bootstrap interval of the precision.
+    pub precision_interval: Option<Interval>,
+    /// Bootstrap interval of the recall.
+    pub recall_interval: Option<Interval>,
+    /// Bootstrap interval of the F1.
+    pub f1_interval: Option<Interval>,
+    /// Bootstrap interval of the false alarms per sheet.
+    pub false_alarms_per_sheet: Option<Interval>,
+    /// Bootstrap interval of the misses per sheet.
+    pub misses_per_sheet: Option<Interval>,
 }
 
 /// Everything measured on a set of held-out sheets.
@@ -249,6 +286,9 @@ pub struct SheetEvaluation {
     pub calibration: Option<Calibration>,
     /// Bootstrap intervals, when asked for.
     pub intervals: Option<TrustIntervals>,
+    /// Per-class figures at the operating threshold (`None` when there is none).
+    #[serde(default)]
+    pub class_operating: Option<Vec<ClassOperating>>,
 }
 
 /// The operating threshold and, where defined, the point it achieves.
@@ -283,6 +323,115 @@ fn counts_at(s: &SheetOutcomes, threshold: f64) -> (u64, u64, u64, u64) {
     let tp = kept.iter().filter(|o| o.true_positive).count() as u64;
     let dup = kept.iter().filter(|o| o.duplicate).count() as u64;
     (kept.len() as u64, tp, dup, s.truths_per_class.iter().sum())
+}
+
+/// Counts of one sheet at a threshold for class `k`: (kept, true positives, ground truth).
+fn class_counts_at(s: &SheetOutcomes, threshold: f64, k: usize) -> (u64, u64, u64) {
+    let mut kept = 0;
+    let mut tp = 0;
+    for o in s
+        .outcomes
+        .iter()
+        .filter(|o| o.class == k && o.score >= threshold)
+    {
+        kept += 1;
+        tp += u64::from(o.true_positive);
+    }
+    (kept, tp, s.truths_per_class[k])
+}
+
+fn opt_f1(p: Option<f64>, r: Option<f64>) -> Option<f64> {
+    match (p, r) {
+        (Some(p), Some(r)) => Some(f1(p, r)),
+        _ => None,
+    }
+}
+
+/// Precision, recall, F1, false alarms per sheet and misses per sheet of
+/// class `k` (or all classes pooled, `None`) on sheets `idx` at threshold `t`.
+fn stats_at(
+    outcomes: &[SheetOutcomes],
+    idx: &[usize],
+    t: f64,
+    k: Option<usize>,
+) -> [Option<f64>; 5] {
+    let (mut kept, mut tp, mut truths) = (0, 0, 0);
+    for &i in idx {
+        let (a, b, c) = match k {
+            Some(k) => class_counts_at(&outcomes[i], t, k),
+            None => {
+                let (a, b, _, c) = counts_at(&outcomes[i], t);
+                (a, b, c)
+            }
+        };
+        kept += a;
+        tp += b;
+        truths += c;
+    }
+    let sheets = idx.len() as f64;
+    let (p, r) = (ratio(tp, kept), ratio(tp, truths));
+    [
+        p,
+        r,
+        opt_f1(p, r),
+        Some((kept - tp) as f64 / sheets),
+        Some((truths - tp) as f64 / sheets),
+    ]
+}
+
+/// Per-class figures at threshold `t`, with intervals when `b` is given.
+fn class_operating(
+    outcomes: &[SheetOutcomes],
+    class_names: &[String],
+    t: f64,
+    b: Option<&BootstrapConfig>,
+) -> Result<Vec<ClassOperating>> {
+    let all: Vec<usize> = (0..outcomes.len()).collect();
+    let draws = match b {
+        Some(b) => resample_indices(outcomes.len(), b)?,
+        None => Vec::new(),
+    };
+    let mut rows = Vec::with_capacity(class_names.len());
+    for (k, name) in class_names.iter().enumerate() {
+        let (mut kept, mut tp, mut truths) = (0, 0, 0);
+        for o in outcomes {
+            let (a, p, g) = class_counts_at(o, t, k);
+            kept += a;
+            tp += p;
+            truths += g;
+        }
+        let est = stats_at(outcomes, &all, t, Some(k));
+        let mut ivs: [Option<Interval>; 5] = Default::default();
+        if let Some(b) = b {
+            let mut reps: [Vec<Option<f64>>; 5] = Default::default();
+            for idx in &draws {
+                for (j, v) in stats_at(outcomes, idx, t, Some(k)).into_iter().enumerate() {
+                    reps[j].push(v);
+                }
+            }
+            for j in 0..5 {
+                ivs[j] = Some(interval_from(est[j], &reps[j], b.level)?);
+            }
+        }
+        let [pi, ri, fi, fai, mi] = ivs;
+        rows.push(ClassOperating {
+            class: name.clone(),
+            n_truths: truths,
+            n_kept: kept,
+            true_positives: tp,
+            false_alarms: kept - tp,
+            misses: truths - tp,
+            precision: est[0],
+            recall: est[1],
+            f1: est[2],
+            precision_interval: pi,
+            recall_interval: ri,
+            f1_interval: fi,
+            false_alarms_per_sheet: fai,
+            misses_per_sheet: mi,
+        });
+    }
+    Ok(rows)
 }
 
 fn ratio(a: u64, b: u64) -> Option<f64> {
@@ -408,6 +557,16 @@ pub fn evaluate_sheets(
         None => None,
     };
 
+    let class_operating = match operating_threshold {
+        Some(t) => Some(class_operating(
+            &outcomes,
+            class_names,
+            t,
+            cfg.bootstrap.as_ref(),
+        )?),
+        None => None,
+    };
+
     Ok(SheetEvaluation {
         classes: class_names.to_vec(),
         n_sheets: sheets.len() as u64,
@@ -423,26 +582,8 @@ pub fn evaluate_sheets(
         per_sheet,
         calibration,
         intervals,
+        class_operating,
     })
-}
-
-/// Micro precision, micro recall, false alarms per sheet and misses per sheet
-/// of sheets `idx` (repeats count again) at threshold `t`.
-fn operating_stats(outcomes: &[SheetOutcomes], idx: &[usize], t: f64) -> [Option<f64>; 4] {
-    let (mut kept, mut tp, mut truths) = (0, 0, 0);
-    for &i in idx {
-        let (k, p, _, g) = counts_at(&outcomes[i], t);
-        kept += k;
-        tp += p;
-        truths += g;
-    }
-    let sheets = idx.len() as f64;
-    [
-        ratio(tp, kept),
-        ratio(tp, truths),
-        Some((kept - tp) as f64 / sheets),
-        Some((truths - tp) as f64 / sheets),
-    ]
 }
 
 #[allow(clippy::too_many_arguments)]
@@ -461,7 +602,7 @@ fn sheet_intervals(
     let mut r_map_101 = Vec::with_capacity(draws.len());
     let mut r_micro = Vec::with_capacity(draws.len());
     let mut r_class = vec![Vec::with_capacity(draws.len()); n];
-    let mut r_op: [Vec<Option<f64>>; 4] = Default::default();
+    let mut r_op: [Vec<Option<f64>>; 5] = Default::default();
     for idx in &draws {
         let (aps, m_all, m_101) = class_aps(outcomes, idx, n);
         r_map_all.push(m_all);
@@ -471,13 +612,13 @@ fn sheet_intervals(
         }
         r_micro.push(ApFigures::of(&pooled_curve(outcomes, idx, None)).all_point);
         if let Some(t) = threshold {
-            for (j, v) in operating_stats(outcomes, idx, t).into_iter().enumerate() {
+            for (j, v) in stats_at(outcomes, idx, t, None).into_iter().enumerate() {
                 r_op[j].push(v);
             }
         }
     }
     let all: Vec<usize> = (0..outcomes.len()).collect();
-    let op_estimate = threshold.map(|t| operating_stats(outcomes, &all, t));
+    let op_estimate = threshold.map(|t| stats_at(outcomes, &all, t, None));
     let op = |j: usize| -> Result<Option<Interval>> {
         match op_estimate {
             Some(e) => Ok(Some(interval_from(e[j], &r_op[j], b.level)?)),
@@ -496,8 +637,9 @@ fn sheet_intervals(
             .collect::<Result<_>>()?,
         precision_at_operating: op(0)?,
         recall_at_operating: op(1)?,
-        false_alarms_per_sheet: op(2)?,
-        misses_per_sheet: op(3)?,
+        f1_at_operating: op(2)?,
+        false_alarms_per_sheet: op(3)?,
+        misses_per_sheet: op(4)?,
     })
 }
 
@@ -584,6 +726,28 @@ mod tests {
         // F1 at 0.7 is .75 (P = R = .75), the best.
         let op = e.operating.unwrap();
         assert_eq!((op.threshold, op.precision, op.recall), (0.7, 0.75, 0.75));
+        // Per class at 0.7: valve keeps .9 (found) and .8 (duplicate) of its 2
+        // symbols -> P = R = .5, 1 false alarm, 1 miss; pump keeps .85 and .7,
+        // both found -> P = R = 1.
+        let co = e.class_operating.as_ref().unwrap();
+        assert_eq!(
+            (
+                co[0].n_kept,
+                co[0].true_positives,
+                co[0].false_alarms,
+                co[0].misses
+            ),
+            (2, 1, 1, 1)
+        );
+        assert_eq!(
+            (co[0].precision, co[0].recall, co[0].f1),
+            (Some(0.5), Some(0.5), Some(0.5))
+        );
+        assert_eq!(
+            (co[1].precision, co[1].recall, co[1].f1),
+            (Some(1.0), Some(1.0), Some(1.0))
+        );
+        assert!(co[0].precision_interval.is_none());
         // Per sheet at 0.7.
         let rows = e.per_sheet.as_ref().unwrap();
         let a = &rows[0];
@@ -720,6 +884,16 @@ mod tests {
         assert_eq!(iv.map_all_point.resamples_undefined, 0);
         // Sheet b alone has micro AP 1 (pump found, the valve a false alarm at a lower score).
         assert_eq!(iv.micro_ap_all_point.upper, Some(1.0));
+        // Pump precision at 0.7 is 1 on every replicate (each pump detection kept
+        // is a hit), so its interval collapses to 1; valve precision on {b,b} is
+        // undefined (no valve detection above 0.7 on sheet b).
+        let co = e.class_operating.as_ref().unwrap();
+        let pump = co[1].precision_interval.as_ref().unwrap();
+        assert_eq!((pump.lower, pump.upper), (Some(1.0), Some(1.0)));
+        let valve = co[0].precision_interval.as_ref().unwrap();
+        assert_eq!(valve.resamples_used + valve.resamples_undefined, 300);
+        assert!(valve.resamples_undefined > 0);
+        assert!(iv.f1_at_operating.as_ref().unwrap().estimate == Some(0.75));
     }
 
     #[test]
