@@ -104,13 +104,13 @@ pub fn trust_statement(e: &SheetEvaluation, detector: &str) -> String {
     if let Some(worst) = rows
         .iter()
         .max_by_key(|r| (r.false_alarms + r.misses, r.sheet.clone()))
+        && worst.false_alarms + worst.misses > 0
+        && rows.len() > 1
     {
-        if worst.false_alarms + worst.misses > 0 && rows.len() > 1 {
-            s.push_str(&format!(
-                " The worst sheet is {} ({} false alarms, {} misses).",
-                worst.sheet, worst.false_alarms, worst.misses
-            ));
-        }
+        s.push_str(&format!(
+            " The worst sheet is {} ({} false alarms, {} misses).",
+            worst.sheet, worst.false_alarms, worst.misses
+        ));
     }
     match level {
         Some(l) => s.push_str(&format!(
