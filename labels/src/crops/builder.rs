@@ -151,14 +151,8 @@ pub fn build_library(
     }
 
     let settings = CropSettings {
-        window: config.window,
-        dpi: config.dpi,
-        jitter_copies: config.crops.jitter_copies,
-        jitter_pixels: config.crops.jitter_pixels,
-        negatives_per_sheet: config.negatives_per_sheet,
-        min_negative_ink: config.crops.min_negative_ink,
-        hard_negatives_per_sheet: config.crops.hard_negatives_per_sheet,
         hard_negatives_sha256: hard_sha,
+        ..site_crop_settings(site)
     };
     let id = CropManifest::compute_id(seed, &classes, &settings, &manifest_sheets, &split.held_out);
     let final_dir = site.crops_dir().join(&id);
@@ -322,44 +316,41 @@ pub fn ink_fraction(img: &GrayImage) -> f64 {
     ink as f64 / img.as_raw().len().max(1) as f64
 }
 
-fn cut_sheet(
-    site: &Site,
-    input: &SheetInput,
+/// One window the crop rules chose on a sheet, before it is cut.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PlannedCrop {
+    /// Positive, random negative or hard negative.
+    pub kind: CropKind,
+    /// Class name, or [`BACKGROUND`].
+    pub class: String,
+    /// Symbol id for positives, empty otherwise.
+    pub symbol: String,
+    /// The window in sheet pixels.
+    pub window: Window,
+}
+
+/// Chooses a sheet's crop windows by the rules in the module comment: centred
+/// positives (plus `jitter_copies` shifted copies), random negatives and hard
+/// negatives from `detections`. Returns the windows and how many negatives
+/// could not be found. Deterministic in `seed` and the sheet id.
+pub fn plan_crops(
+    doc: &LabelDocument,
+    img: &GrayImage,
     settings: &CropSettings,
     seed: u64,
-) -> Result<(Vec<CutCrop>, usize)> {
-    let doc = &input.doc;
+    detections: &[Detection],
+) -> (Vec<PlannedCrop>, usize) {
     let sheet_id = &doc.sheet.id;
-    let img = load_sheet(site, &doc.sheet)?;
     let size = settings.window;
     let mut rng = SeededRng::derive(seed, &format!("crops/{sheet_id}"));
     let mut out = Vec::new();
-    let mut push = |kind: CropKind, class: &str, symbol: &str, window: Window| -> Result<()> {
-        let crop = cut_window(&img, window);
-        let png = crate::raster::encode_png_with_dpi(&crop, settings.dpi)?;
-        let tag = match kind {
-            CropKind::Positive => "pos",
-            CropKind::Negative => "neg",
-            CropKind::HardNegative => "hard",
-        };
-        let n = out.len();
-        out.push(CutCrop {
-            record: CropRecord {
-                file: format!("images/{sheet_id}_{tag}_{n:05}.png"),
-                class: class.to_string(),
-                sheet: sheet_id.clone(),
-                x: window.left,
-                y: window.top,
-                w: size,
-                h: size,
-                kind,
-                split: input.split,
-                symbol: symbol.to_string(),
-                sha256: sha256_hex(&png),
-            },
-            png,
+    let mut push = |kind: CropKind, class: &str, symbol: &str, window: Window| {
+        out.push(PlannedCrop {
+            kind,
+            class: class.to_string(),
+            symbol: symbol.to_string(),
+            window,
         });
-        Ok(())
     };
 
     for s in doc.accepted() {
@@ -369,7 +360,7 @@ fn cut_sheet(
             &s.class,
             &s.id,
             Window::centered_on(cx, cy, size),
-        )?;
+        );
         let j = i64::from(settings.jitter_pixels);
         for _ in 0..settings.jitter_copies {
             let dx = rng.range_i64(-j, j) as f64;
@@ -379,7 +370,7 @@ fn cut_sheet(
                 &s.class,
                 &s.id,
                 Window::centered_on(cx + dx, cy + dy, size),
-            )?;
+            );
         }
     }
 
@@ -415,11 +406,11 @@ fn cut_sheet(
                 continue;
             }
             if settings.min_negative_ink > 0.0
-                && ink_fraction(&cut_window(&img, window)) < settings.min_negative_ink
+                && ink_fraction(&cut_window(img, window)) < settings.min_negative_ink
             {
                 continue;
             }
-            push(CropKind::Negative, BACKGROUND, "", window)?;
+            push(CropKind::Negative, BACKGROUND, "", window);
             got += 1;
         }
         short += want - got;
@@ -427,7 +418,7 @@ fn cut_sheet(
         short += want;
     }
 
-    let mut dets: Vec<&Detection> = input.detections.iter().collect();
+    let mut dets: Vec<&Detection> = detections.iter().collect();
     dets.sort_by(|a, b| b.score.total_cmp(&a.score));
     let mut taken = 0;
     for d in dets {
@@ -443,10 +434,64 @@ fn cut_sheet(
         if holds_centre(&window.bbox()) {
             continue;
         }
-        push(CropKind::HardNegative, BACKGROUND, "", window)?;
+        push(CropKind::HardNegative, BACKGROUND, "", window);
         taken += 1;
     }
+    (out, short)
+}
+
+fn cut_sheet(
+    site: &Site,
+    input: &SheetInput,
+    settings: &CropSettings,
+    seed: u64,
+) -> Result<(Vec<CutCrop>, usize)> {
+    let doc = &input.doc;
+    let sheet_id = &doc.sheet.id;
+    let img = load_sheet(site, &doc.sheet)?;
+    let (planned, short) = plan_crops(doc, &img, settings, seed, &input.detections);
+    let mut out = Vec::with_capacity(planned.len());
+    for (n, p) in planned.into_iter().enumerate() {
+        let crop = cut_window(&img, p.window);
+        let png = crate::raster::encode_png_with_dpi(&crop, settings.dpi)?;
+        let tag = match p.kind {
+            CropKind::Positive => "pos",
+            CropKind::Negative => "neg",
+            CropKind::HardNegative => "hard",
+        };
+        out.push(CutCrop {
+            record: CropRecord {
+                file: format!("images/{sheet_id}_{tag}_{n:05}.png"),
+                class: p.class,
+                sheet: sheet_id.clone(),
+                x: p.window.left,
+                y: p.window.top,
+                w: settings.window,
+                h: settings.window,
+                kind: p.kind,
+                split: input.split,
+                symbol: p.symbol,
+                sha256: sha256_hex(&png),
+            },
+            png,
+        });
+    }
     Ok((out, short))
+}
+
+/// The crop settings a site's configuration gives (no hard-negative file).
+pub fn site_crop_settings(site: &Site) -> CropSettings {
+    let config = &site.config;
+    CropSettings {
+        window: config.window,
+        dpi: config.dpi,
+        jitter_copies: config.crops.jitter_copies,
+        jitter_pixels: config.crops.jitter_pixels,
+        negatives_per_sheet: config.negatives_per_sheet,
+        min_negative_ink: config.crops.min_negative_ink,
+        hard_negatives_per_sheet: config.crops.hard_negatives_per_sheet,
+        hard_negatives_sha256: None,
+    }
 }
 
 #[cfg(test)]
