@@ -4,6 +4,7 @@
 
 pub mod atomic;
 pub mod clock;
+pub mod coco_results;
 pub mod crops;
 pub mod detections;
 pub mod document;
