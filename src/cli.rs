@@ -61,6 +61,9 @@ pub enum Command {
         after_help = "Example:\n  symtrust detect --site ./north-unit --model models/20261201T101500-3fa2c1d0 --out found.csv fp-a-0007"
     )]
     Detect(cmd::detect::DetectArgs),
+    /// Serve the local review page: label sheets, accept or reject model proposals.
+    #[command(after_help = "Example:\n  symtrust review --site ./north-unit --port 8765")]
+    Review(cmd::review::ReviewArgs),
     /// Run the whole job on the built-in synthetic plant.
     #[command(after_help = "Example:\n  symtrust demo --out ./symtrust-demo")]
     Demo(cmd::demo::DemoArgs),
@@ -77,5 +80,6 @@ pub fn dispatch(ctx: &Ctx, command: Command) -> anyhow::Result<u8> {
         Command::Train(args) => cmd::train::run(ctx, &args),
         Command::Demo(args) => cmd::demo::run(ctx, &args),
         Command::Detect(args) => cmd::detect::run(ctx, &args),
+        Command::Review(args) => cmd::review::run(ctx, &args),
     }
 }

@@ -5,6 +5,7 @@ pub mod demo;
 pub mod detect;
 pub mod init;
 pub mod labels;
+pub mod review;
 pub mod sheets;
 pub mod synth;
 pub mod train;
