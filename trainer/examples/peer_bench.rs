@@ -177,8 +177,204 @@ fn main() {
                 peak_rss_kib() as f64 / 1024.0
             );
         }
+        Some("kernels") => kernels(threads),
         _ => {
             arg(&args, usize::MAX);
         }
     }
+}
+
+/// Seconds per call of `f`, the best of `reps` timed calls after one warm-up.
+fn best_of(reps: usize, mut f: impl FnMut()) -> f64 {
+    f();
+    (0..reps)
+        .map(|_| {
+            let t = Instant::now();
+            f();
+            t.elapsed().as_secs_f64()
+        })
+        .fold(f64::INFINITY, f64::min)
+}
+
+/// FP32 peak of all threads from chains of independent fused multiply-adds
+/// (10 accumulators per thread hide the FMA latency), the best of AVX2 and
+/// AVX-512 where the CPU has them; GFLOP/s.
+fn fma_peak(threads: usize) -> (f64, &'static str) {
+    #[cfg(target_arch = "x86_64")]
+    {
+        use std::arch::x86_64::*;
+        const ITERS: usize = 20_000_000;
+        #[target_feature(enable = "avx2,fma")]
+        unsafe fn chains256(seed: f32) -> f32 {
+            let a = _mm256_set1_ps(0.999_999);
+            let b = _mm256_set1_ps(1e-7);
+            let mut acc = [_mm256_set1_ps(seed); 10];
+            for _ in 0..ITERS {
+                for v in acc.iter_mut() {
+                    *v = _mm256_fmadd_ps(*v, a, b);
+                }
+            }
+            let mut out = [0f32; 8];
+            let mut s = acc[0];
+            for v in &acc[1..] {
+                s = _mm256_add_ps(s, *v);
+            }
+            unsafe { _mm256_storeu_ps(out.as_mut_ptr(), s) };
+            out.iter().sum()
+        }
+        #[target_feature(enable = "avx512f")]
+        unsafe fn chains512(seed: f32) -> f32 {
+            let a = _mm512_set1_ps(0.999_999);
+            let b = _mm512_set1_ps(1e-7);
+            let mut acc = [_mm512_set1_ps(seed); 10];
+            for _ in 0..ITERS / 2 {
+                for v in acc.iter_mut() {
+                    *v = _mm512_fmadd_ps(*v, a, b);
+                }
+            }
+            let mut s = acc[0];
+            for v in &acc[1..] {
+                s = _mm512_add_ps(s, *v);
+            }
+            _mm512_reduce_add_ps(s)
+        }
+        let run = |wide: bool| -> f64 {
+            let t = Instant::now();
+            let sums: Vec<f32> = std::thread::scope(|sc| {
+                let hs: Vec<_> = (0..threads)
+                    .map(|i| {
+                        sc.spawn(move || {
+                            // SAFETY: only called after the CPU reported the feature.
+                            unsafe {
+                                if wide {
+                                    chains512(i as f32)
+                                } else {
+                                    chains256(i as f32)
+                                }
+                            }
+                        })
+                    })
+                    .collect();
+                hs.into_iter().map(|h| h.join().expect("peak thread")).collect()
+            });
+            std::hint::black_box(sums);
+            // Both variants do ITERS x 10 x 8 FMAs (2 flops each) per thread.
+            (threads * ITERS * 10 * 8 * 2) as f64 / t.elapsed().as_secs_f64() / 1e9
+        };
+        let mut best = (0.0, "none");
+        if is_x86_feature_detected!("avx2") && is_x86_feature_detected!("fma") {
+            best = (run(false), "AVX2 FMA");
+        }
+        if is_x86_feature_detected!("avx512f") {
+            let wide = run(true);
+            if wide > best.0 {
+                best = (wide, "AVX-512 FMA");
+            }
+        }
+        best
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    {
+        (0.0, "unmeasured")
+    }
+}
+
+/// GFLOP/s of each convolution kernel of the default network at batch 64,
+/// and of the score map's dense head on one 64 x 64-cell tile.
+fn kernels(threads: usize) {
+    use symtrust_trainer::kernels::conv::{Geometry, backward, forward};
+    use symtrust_trainer::kernels::head::DenseHead;
+    let (peak, isa) = fma_peak(threads);
+    let mut rng = SeededRng::new(7);
+    let mut rand = |n: usize| -> Vec<f32> { (0..n).map(|_| rng.uniform() as f32 - 0.3).collect() };
+    let arch = Architecture::from_settings(&ModelSettings::default(), 100, 4).expect("arch");
+    let mut side = arch.window;
+    let mut rows = Vec::new();
+    for i in 0..arch.layers() {
+        let g = Geometry {
+            batch: 64,
+            c_in: arch.conv_inputs(i),
+            h: side,
+            w: side,
+            c_out: arch.conv_channels[i],
+            k: arch.conv_kernels[i],
+            relu: true,
+            pool: true,
+        };
+        let (x, w, b) = (
+            rand(g.batch * g.in_len()),
+            rand(g.c_out * g.patch()),
+            rand(g.c_out),
+        );
+        let (out, idx) = forward(&g, &x, &w, &b);
+        let grad = rand(out.len());
+        let fwd = best_of(5, || {
+            std::hint::black_box(forward(&g, &x, &w, &b));
+        });
+        let want_dx = i > 0;
+        let bwd = best_of(3, || {
+            std::hint::black_box(backward(&g, &x, &w, &out, &idx, &grad, want_dx));
+        });
+        let flops = 2.0 * g.forward_macs() as f64;
+        let bwd_flops = flops * if want_dx { 2.0 } else { 1.0 };
+        for (what, secs, fl) in [("forward", fwd, flops), ("backward", bwd, bwd_flops)] {
+            rows.push(format!(
+                "{{\"kernel\":\"conv{} {what}\",\"shape\":\"{}x{}x{}x{} k{} -> {}\",\"ms\":{:.2},\"gflops\":{:.1},\"peak_share\":{:.3}}}",
+                i + 1,
+                g.batch,
+                g.c_in,
+                g.h,
+                g.w,
+                g.k,
+                g.c_out,
+                secs * 1e3,
+                fl / secs / 1e9,
+                fl / secs / 1e9 / peak
+            ));
+        }
+        side = g.out_hw().0;
+    }
+    // Dense head on one tile: a 73 x 73 feature map gives 64 x 64 cells; the
+    // score map runs one tile per thread, so the rate is for all threads.
+    let f = arch.feature_side();
+    let c = arch.conv_channels[arch.layers() - 1];
+    let (fh, fw) = (64 + f - 1, 64 + f - 1);
+    let feats = rand(c * fh * fw);
+    let (hw, hb, ow, ob) = (
+        rand(arch.hidden * c * f * f),
+        rand(arch.hidden),
+        rand(arch.classes * arch.hidden),
+        rand(arch.classes),
+    );
+    let head = DenseHead {
+        hidden_w: &hw,
+        hidden_b: &hb,
+        out_w: &ow,
+        out_b: &ob,
+        channels: c,
+        side: f,
+    };
+    let cells: Vec<(usize, usize)> = (0..64).flat_map(|r| (0..64).map(move |q| (r, q))).collect();
+    let secs = best_of(3, || {
+        use rayon::prelude::*;
+        (0..threads).into_par_iter().for_each(|_| {
+            std::hint::black_box(head.logits(&feats, fh, fw, &cells));
+        });
+    });
+    let flops = threads as f64
+        * 2.0
+        * cells.len() as f64
+        * (c * f * f * arch.hidden + arch.hidden * arch.classes) as f64;
+    rows.push(format!(
+        "{{\"kernel\":\"dense head\",\"shape\":\"{threads} tiles of 64x64 cells, {c}x{f}x{f} -> {} -> {}\",\"ms\":{:.2},\"gflops\":{:.1},\"peak_share\":{:.3}}}",
+        arch.hidden,
+        arch.classes,
+        secs * 1e3,
+        flops / secs / 1e9,
+        flops / secs / 1e9 / peak
+    ));
+    println!(
+        "{{\"mode\":\"kernels\",\"threads\":{threads},\"peak_gflops\":{peak:.1},\"peak_isa\":\"{isa}\",\"kernels\":[{}]}}",
+        rows.join(",")
+    );
 }

@@ -15,6 +15,7 @@ pub mod checkpoint;
 pub mod data;
 pub mod error;
 pub mod infer;
+pub mod kernels;
 pub mod metrics;
 pub mod model;
 pub mod ops;

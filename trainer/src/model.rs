@@ -12,7 +12,7 @@
 
 use crate::arch::Architecture;
 use crate::error::{Result, TensorContext, TrainerError};
-use crate::ops;
+use crate::ops::{self, Kernels};
 use candle_core::{DType, Device, Tensor, Var};
 use std::collections::HashMap;
 use symtrust_labels::SeededRng;
@@ -145,12 +145,17 @@ impl Network {
         ]
     }
 
-    /// The convolution stack: `(batch, 1, h, w)` to `(batch, C, h', w')`.
+    /// The convolution stack: `(batch, 1, h, w)` to `(batch, C, h', w')`, fast kernels.
     pub fn features(&self, x: &Tensor) -> candle_core::Result<Tensor> {
+        self.features_with(Kernels::Fast, x)
+    }
+
+    /// [`Network::features`] with the chosen kernels.
+    pub fn features_with(&self, kernels: Kernels, x: &Tensor) -> candle_core::Result<Tensor> {
         let mut x = x.clone();
         for i in 0..self.arch.layers() {
             let (w, b) = self.conv(i);
-            x = ops::max_pool2(&ops::relu(&ops::conv2d(&x, w, b)?)?)?;
+            x = ops::conv_block(kernels, &x, w, b, true, true)?;
         }
         Ok(x)
     }
@@ -162,8 +167,18 @@ impl Network {
         x: &Tensor,
         dropout_mask: Option<&Tensor>,
     ) -> candle_core::Result<Tensor> {
+        self.forward_with(Kernels::Fast, x, dropout_mask)
+    }
+
+    /// [`Network::forward`] with the chosen kernels.
+    pub fn forward_with(
+        &self,
+        kernels: Kernels,
+        x: &Tensor,
+        dropout_mask: Option<&Tensor>,
+    ) -> candle_core::Result<Tensor> {
         let [hw, hb, ow, ob] = self.dense();
-        let f = self.features(x)?.flatten_from(1)?;
+        let f = self.features_with(kernels, x)?.flatten_from(1)?;
         let mut h = f.matmul(&hw.t()?)?.broadcast_add(hb)?.relu()?;
         if let Some(mask) = dropout_mask {
             h = (h * mask)?;
@@ -174,14 +189,37 @@ impl Network {
     /// Logits `(batch, classes, rows, cols)` at every window position of an
     /// input of any size at least one window: the dense layers as convolutions.
     pub fn forward_dense_as_conv(&self, x: &Tensor) -> candle_core::Result<Tensor> {
+        self.forward_dense_as_conv_with(Kernels::Fast, x)
+    }
+
+    /// [`Network::forward_dense_as_conv`] with the chosen kernels.
+    pub fn forward_dense_as_conv_with(
+        &self,
+        kernels: Kernels,
+        x: &Tensor,
+    ) -> candle_core::Result<Tensor> {
         let [hw, hb, ow, ob] = self.dense();
         let a = &self.arch;
         let f = a.feature_side();
         let c = a.conv_channels[a.layers() - 1];
         let hidden_kernel = hw.reshape((a.hidden, c, f, f))?;
         let out_kernel = ow.reshape((a.classes, a.hidden, 1, 1))?;
-        let h = ops::relu(&ops::conv2d(&self.features(x)?, &hidden_kernel, hb)?)?;
-        ops::conv2d(&h, &out_kernel, ob)
+        let h = ops::conv_block(
+            kernels,
+            &self.features_with(kernels, x)?,
+            &hidden_kernel,
+            hb,
+            true,
+            false,
+        )?;
+        ops::conv_block(kernels, &h, &out_kernel, ob, false, false)
+    }
+
+    /// The dense layers' weights as plain vectors (f32), for the score map's head.
+    pub fn dense_values(&self) -> candle_core::Result<[Vec<f32>; 4]> {
+        let [hw, hb, ow, ob] = self.dense();
+        let v = |t: &Tensor| t.to_dtype(DType::F32)?.flatten_all()?.to_vec1::<f32>();
+        Ok([v(hw)?, v(hb)?, v(ow)?, v(ob)?])
     }
 }
 

@@ -1,11 +1,60 @@
-//! The three tensor kernels the network is made of, in one place.
+//! The tensor kernels the network is made of, in one place.
 //!
-//! Every convolution, activation and pooling of the model goes through these
-//! functions, so a later change can replace Candle's stock CPU kernels (known
-//! to be several times slower than PyTorch's on two cores) without touching
-//! the model, the training loop or the score map.
+//! Every convolution, activation and pooling of the model goes through
+//! [`conv_block`], which runs either the fast custom op of
+//! [`crate::kernels::conv`] ([`Kernels::Fast`], the default) or a composition
+//! of Candle's stock ops ([`Kernels::Stock`]: [`conv2d`], [`relu`],
+//! [`max_pool2`]), kept as the reference the fast path is tested against.
+//! Both compute the same forward values up to float rounding; their gradients
+//! differ only at exact ties (see [`crate::kernels::conv`]).
 
-use candle_core::{Result, Tensor};
+use crate::kernels::conv::ConvBlock;
+use candle_core::{DType, Result, Tensor};
+
+/// Which implementation of the convolution stack to run.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum Kernels {
+    /// The custom im2col + GEMM ops of [`crate::kernels`] (CPU, f32 or f64).
+    #[default]
+    Fast,
+    /// Candle's stock ops (the reference twin).
+    Stock,
+}
+
+/// Convolution (unpadded, stride 1) plus bias, then ReLU if `relu` and 2 x 2
+/// max pooling if `pool`, with the chosen kernels.
+///
+/// Shapes as in [`conv2d`]; pooling drops an odd last row or column. The fast
+/// path falls back to the stock ops for devices or dtypes it does not handle.
+pub fn conv_block(
+    kernels: Kernels,
+    x: &Tensor,
+    weight: &Tensor,
+    bias: &Tensor,
+    relu: bool,
+    pool: bool,
+) -> Result<Tensor> {
+    let fast_ok = kernels == Kernels::Fast
+        && x.device().is_cpu()
+        && matches!(x.dtype(), DType::F32 | DType::F64)
+        && weight.dtype() == x.dtype()
+        && bias.dtype() == x.dtype();
+    if fast_ok {
+        return x.contiguous()?.apply_op3(
+            &weight.contiguous()?,
+            &bias.contiguous()?,
+            ConvBlock::new(relu, pool),
+        );
+    }
+    let mut y = conv2d(x, weight, bias)?;
+    if relu {
+        y = self::relu(&y)?;
+    }
+    if pool {
+        y = max_pool2(&y)?;
+    }
+    Ok(y)
+}
 
 /// Unpadded, stride-1 2-D convolution plus a per-channel bias.
 ///

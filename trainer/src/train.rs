@@ -14,8 +14,10 @@
 //! after the seed, the epoch and the batch or crop (`order/<e>`,
 //! `augment/<e>/<i>`, `dropout/<e>/<b>`), so the draws do not depend on thread
 //! scheduling and a resumed run repeats exactly what an uninterrupted one does.
-//! Candle's CPU kernels split work across threads without splitting sums, so on
-//! one machine with one thread count the weights are identical bit for bit
+//! The convolution kernels ([`crate::kernels::conv`]) split work across
+//! threads only by sample, and sum weight gradients over fixed groups in a
+//! fixed order; Candle's dense kernels do not split sums either. So on one
+//! machine with one thread count the weights are identical bit for bit
 //! (tested).
 
 use crate::arch::Architecture;
@@ -25,6 +27,7 @@ use crate::data::{Dataset, Sample, ink};
 use crate::error::{Result, TensorContext, TrainerError};
 use crate::metrics::{Confusion, ValidationMetrics};
 use crate::model::Network;
+use crate::ops::Kernels;
 use crate::optim::{AdamW, learning_rate};
 use candle_core::{DType, Device, Tensor};
 use rayon::prelude::*;
@@ -208,8 +211,18 @@ pub fn weighted_loss(
     (logp * target)?.sum_all()? * (-1.0 / total.max(f64::MIN_POSITIVE))
 }
 
-/// Validation loss, accuracy and F1 of `net` on `samples`.
+/// Validation loss, accuracy and F1 of `net` on `samples` (fast kernels).
 pub fn evaluate(net: &Network, samples: &[Sample], classes: usize) -> Result<ValidationMetrics> {
+    evaluate_with(Kernels::Fast, net, samples, classes)
+}
+
+/// [`evaluate`] with the chosen kernels.
+pub fn evaluate_with(
+    kernels: Kernels,
+    net: &Network,
+    samples: &[Sample],
+    classes: usize,
+) -> Result<ValidationMetrics> {
     let side = net.arch.window;
     let mut truth = Vec::with_capacity(samples.len());
     let mut predicted = Vec::with_capacity(samples.len());
@@ -221,7 +234,7 @@ pub fn evaluate(net: &Network, samples: &[Sample], classes: usize) -> Result<Val
             .collect();
         let run = || -> candle_core::Result<(Vec<Vec<f32>>, f64)> {
             let x = batch_tensor(images, side, DType::F32)?;
-            let logits = net.forward(&x, None)?;
+            let logits = net.forward_with(kernels, &x, None)?;
             let labels: Vec<usize> = chunk.iter().map(|s| s.class).collect();
             let ones = vec![1.0; classes];
             let loss = weighted_loss(&logits, &labels, &ones)?.to_scalar::<f32>()? as f64;
@@ -259,6 +272,27 @@ pub fn argmax(row: &[f32]) -> usize {
 /// checkpoint of the same run; the checkpoint is left in place for the caller
 /// to remove once the model folder is written.
 pub fn train(
+    data: &Dataset,
+    arch: &Architecture,
+    opts: &TrainOptions,
+    checkpoint_dir: Option<&Path>,
+    resume: bool,
+    observer: &mut dyn TrainObserver,
+) -> Result<TrainOutcome> {
+    train_with(
+        Kernels::Fast,
+        data,
+        arch,
+        opts,
+        checkpoint_dir,
+        resume,
+        observer,
+    )
+}
+
+/// [`train`] with the chosen kernels ([`Kernels::Stock`] is the reference twin).
+pub fn train_with(
+    kernels: Kernels,
     data: &Dataset,
     arch: &Architecture,
     opts: &TrainOptions,
@@ -367,7 +401,7 @@ pub fn train(
                 dropout_mask(arch, chunk.len(), opts.seed, epoch, b).during("building dropout")?;
             let step = || -> candle_core::Result<(f64, candle_core::backprop::GradStore)> {
                 let x = batch_tensor(images, side, DType::F32)?;
-                let logits = net.forward(&x, mask.as_ref())?;
+                let logits = net.forward_with(kernels, &x, mask.as_ref())?;
                 let loss = weighted_loss(&logits, &labels, &weights)?;
                 let grads = loss.backward()?;
                 Ok((loss.to_scalar::<f32>()? as f64, grads))
@@ -382,7 +416,7 @@ pub fn train(
                 });
             }
         }
-        let val = evaluate(&net, &data.validation, data.classes.len())?;
+        let val = evaluate_with(kernels, &net, &data.validation, data.classes.len())?;
         let seconds = started.elapsed().as_secs_f64();
         let row = EpochRow {
             epoch: epoch + 1,

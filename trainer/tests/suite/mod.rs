@@ -5,5 +5,6 @@ pub mod library;
 mod bad_input;
 mod digits;
 mod gradients;
+mod kernels;
 mod score_map;
 mod training;

@@ -1,0 +1,46 @@
+//! Hand-written CPU kernels for the convolution stack, plugged into Candle as
+//! custom ops so autograd, the optimiser and safetensors see ordinary tensors.
+//!
+//! - [`conv::ConvBlock`]: unpadded stride-1 convolution plus bias, optionally
+//!   fused with ReLU and 2 x 2 max pooling. Forward is im2col + GEMM (the `gemm`
+//!   crate Candle itself uses) over bands of output rows, so the column buffer
+//!   stays a few MiB whatever the image size; pooling keeps the position of
+//!   each block's maximum. Backward scatters the output gradient to those
+//!   positions, then runs one GEMM per band for the weight gradient
+//!   (accumulated over the batch in fixed groups of [`conv::GROUP`] samples)
+//!   and, only when the input needs a gradient, a GEMM + col2im for it.
+//! - [`head`]: the dense layers as convolutions over a feature map, evaluated
+//!   only at chosen cells (the score map's blank-paper skipping).
+//!
+//! Work is split over samples (training) or over tiles (score map) with rayon;
+//! each GEMM runs on one thread. Sums are never split across threads in a way
+//! that depends on scheduling, so results are identical run to run.
+
+pub mod conv;
+pub mod head;
+mod matmul;
+
+/// The floating-point types the kernels run in (f32 for use, f64 for gradient checks).
+pub trait Float:
+    Copy
+    + Send
+    + Sync
+    + PartialOrd
+    + std::fmt::Debug
+    + std::ops::Add<Output = Self>
+    + std::ops::Mul<Output = Self>
+    + std::ops::AddAssign
+    + candle_core::WithDType
+    + 'static
+{
+    /// Zero.
+    const ZERO: Self;
+}
+
+impl Float for f32 {
+    const ZERO: Self = 0.0;
+}
+
+impl Float for f64 {
+    const ZERO: Self = 0.0;
+}
