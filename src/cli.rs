@@ -61,6 +61,12 @@ pub enum Command {
         after_help = "Example:\n  symtrust detect --site ./north-unit --model models/20261201T101500-3fa2c1d0 --out found.csv fp-a-0007"
     )]
     Detect(cmd::detect::DetectArgs),
+    /// Measure a detector on the held-out sheets: PR curves, AP, operating
+    /// point, confusion tables, calibration and bootstrap intervals.
+    #[command(
+        after_help = "Examples:\n  symtrust eval --site ./north-unit --model models/20261201T101500-3fa2c1d0 --out evals/first\n  symtrust eval --site ./north-unit --detections vendor.csv --target-precision 0.95 --out evals/vendor"
+    )]
+    Eval(cmd::eval::EvalArgs),
     /// Serve the local review page: label sheets, accept or reject model proposals.
     #[command(after_help = "Example:\n  symtrust review --site ./north-unit --port 8765")]
     Review(cmd::review::ReviewArgs),
@@ -80,6 +86,7 @@ pub fn dispatch(ctx: &Ctx, command: Command) -> anyhow::Result<u8> {
         Command::Train(args) => cmd::train::run(ctx, &args),
         Command::Demo(args) => cmd::demo::run(ctx, &args),
         Command::Detect(args) => cmd::detect::run(ctx, &args),
+        Command::Eval(args) => cmd::eval::run(ctx, &args),
         Command::Review(args) => cmd::review::run(ctx, &args),
     }
 }

@@ -5,6 +5,7 @@ mod cli;
 mod cmd;
 mod context;
 mod exit;
+mod sweep;
 
 use clap::Parser;
 use std::process::ExitCode;

@@ -66,7 +66,8 @@ pub fn trust_statement(e: &SheetEvaluation, detector: &str) -> String {
             policy(&e.config.operating)
         );
     };
-    let iv = e.intervals.as_ref();
+    // One sheet resamples to itself: its "interval" is a point and says nothing.
+    let iv = e.intervals.as_ref().filter(|_| e.n_sheets > 1);
     let level = iv.map(|i| i.config.level);
     let rows = e.per_sheet.as_deref().unwrap_or(&[]);
     let n = rows.len().max(1) as f64;
@@ -98,7 +99,13 @@ pub fn trust_statement(e: &SheetEvaluation, detector: &str) -> String {
             weakest.0.class,
             pct(weakest.1),
             weakest.0.n_truths,
-            pct_range(weakest.0.recall_interval.as_ref()),
+            pct_range(
+                weakest
+                    .0
+                    .recall_interval
+                    .as_ref()
+                    .filter(|_| e.n_sheets > 1)
+            ),
         ));
     }
     if let Some(worst) = rows
@@ -113,6 +120,10 @@ pub fn trust_statement(e: &SheetEvaluation, detector: &str) -> String {
         ));
     }
     match level {
+        _ if e.n_sheets < 2 => {
+            s.push_str(" One sheet gives no interval: evaluate on more held-out sheets before trusting these figures.");
+            return s;
+        }
         Some(l) => s.push_str(&format!(
             " Ranges are {}% bootstrap intervals over whole sheets",
             (100.0 * l).round()
@@ -204,6 +215,49 @@ mod tests {
             "{s}"
         );
         assert!(s.contains("No intervals were computed"), "{s}");
+    }
+
+    #[test]
+    fn one_sheet_claims_no_interval() {
+        let sheets = vec![sheet("p-01", 8, 2, 1)];
+        let e =
+            evaluate_sheets(&sheets, &["valve".to_string()], &SheetEvalConfig::default()).unwrap();
+        assert!(e.intervals.is_some());
+        let s = trust_statement(&e, "the detector");
+        assert!(s.contains("found 80% of the symbols,"), "{s}");
+        assert!(s.contains("One sheet gives no interval"), "{s}");
+        assert!(!s.contains("bootstrap"), "{s}");
+    }
+
+    #[test]
+    fn intervals_are_quoted_with_several_sheets() {
+        let sheets: Vec<SheetInput> = (0..4)
+            .map(|i| sheet(&format!("p-{i}"), 6 + i, 4 - i, 0))
+            .collect();
+        let e =
+            evaluate_sheets(&sheets, &["valve".to_string()], &SheetEvalConfig::default()).unwrap();
+        let s = trust_statement(&e, "the detector");
+        // 6+7+8+9 = 30 of 40 found, no false alarms: recall 75%, precision 100%.
+        let iv = e
+            .intervals
+            .as_ref()
+            .unwrap()
+            .recall_at_operating
+            .as_ref()
+            .unwrap();
+        let range = format!(
+            "found 75% ({:.0}-{:.0}%)",
+            100.0 * iv.lower.unwrap(),
+            100.0 * iv.upper.unwrap()
+        );
+        assert!(s.contains(&range), "{s} / {range}");
+        assert!(iv.lower.unwrap() < 0.75 && iv.upper.unwrap() > 0.75);
+        assert!(
+            s.contains(
+                "Ranges are 95% bootstrap intervals over whole sheets; with this few sheets"
+            ),
+            "{s}"
+        );
     }
 
     #[test]

@@ -8,16 +8,14 @@
 
 use crate::context::{Ctx, usage};
 use crate::exit;
-use anyhow::Context as _;
+use crate::sweep::{check_model, check_settings, sweep_sheet};
 use clap::Args;
 use std::path::PathBuf;
-use symtrust_eval::nms::NmsScope;
-use symtrust_eval::peaks::{BoxSize, DetectConfig, ScoreGrid, detect};
-use symtrust_labels::crops::BACKGROUND;
+use symtrust_eval::record::DetectSettings;
 use symtrust_labels::detections::{DETECTIONS_SCHEMA_VERSION, DetectionSet, write_detections};
 use symtrust_labels::sheets::load_sheet;
 use symtrust_labels::store::LabelStore;
-use symtrust_trainer::{Classifier, ScoreMapOptions};
+use symtrust_trainer::Classifier;
 
 /// Arguments of `symtrust detect`.
 #[derive(Debug, Args)]
@@ -37,6 +35,10 @@ pub struct DetectArgs {
     /// Suppress overlaps across classes too (one symbol, one label).
     #[arg(long)]
     pub nms_across_classes: bool,
+    /// Keep at most this many detections per sheet, highest scores first
+    /// (default: no cap; a P&ID sheet can carry hundreds of symbols).
+    #[arg(long, value_name = "N")]
+    pub max_per_sheet: Option<usize>,
     /// Registered sheet ids to sweep.
     #[arg(required = true, value_name = "SHEET")]
     pub sheets: Vec<String>,
@@ -44,42 +46,18 @@ pub struct DetectArgs {
 
 /// Runs the sweep.
 pub fn run(ctx: &Ctx, args: &DetectArgs) -> anyhow::Result<u8> {
-    if !(0.0..=1.0).contains(&args.min_score) || !(0.0..=1.0).contains(&args.nms_iou) {
-        return usage("--min-score and --nms-iou must lie in [0, 1]");
-    }
+    let settings = DetectSettings {
+        min_score: args.min_score,
+        nms_iou: args.nms_iou,
+        nms_across_classes: args.nms_across_classes,
+        max_per_sheet: args.max_per_sheet,
+    };
+    check_settings(&settings)?;
     let site = ctx.open_site()?;
     let classifier = Classifier::load(&args.model)?;
+    check_model(&site, &classifier, &args.model)?;
     let model_id = classifier.card.as_ref().map(|c| c.id.clone());
-    let site_classes = site.config.class_names();
-    let mut expected = site_classes.clone();
-    expected.push(BACKGROUND.to_string());
-    if classifier.classes != expected {
-        return usage(format!(
-            "{}: the model's classes ({}) are not the site's ({}); train a model for this site",
-            args.model.display(),
-            classifier.classes.join(", "),
-            expected.join(", ")
-        ));
-    }
-    if classifier.window() != site.config.window as usize {
-        return usage(format!(
-            "{}: the model's window is {} px but the site's is {}",
-            args.model.display(),
-            classifier.window(),
-            site.config.window
-        ));
-    }
     let store = LabelStore::new(&site);
-    let nominal: Vec<(f64, f64)> = site
-        .config
-        .classes
-        .iter()
-        .map(|c| {
-            let px = site.config.nominal_pixels(c);
-            (px, px)
-        })
-        .collect();
-    let opts = ScoreMapOptions::native(&classifier);
     let bar = ctx.progress(args.sheets.len() as u64, "sweeping");
     let mut all = Vec::new();
     for id in &args.sheets {
@@ -92,34 +70,19 @@ pub fn run(ctx: &Ctx, args: &DetectArgs) -> anyhow::Result<u8> {
         }
         let doc = store.load(id)?;
         let img = load_sheet(&site, &doc.sheet)?;
-        let map = classifier
-            .score_map_image(&img, &opts)
-            .with_context(|| format!("sweeping sheet {id}"))?;
-        let k = map.classes.len();
-        let planes: Vec<Vec<f32>> = (0..site_classes.len())
-            .map(|c| map.scores.iter().skip(c).step_by(k).copied().collect())
-            .collect();
-        let grid = ScoreGrid {
-            rows: map.rows,
-            cols: map.cols,
-            stride: map.stride as u32,
-            window: map.window as u32,
-            planes,
+        let sweep = sweep_sheet(&site, &classifier, &doc, &img, &settings)?;
+        let capped = if sweep.capped > 0 {
+            format!(" ({} more dropped by --max-per-sheet)", sweep.capped)
+        } else {
+            String::new()
         };
-        let config = DetectConfig {
-            min_score: args.min_score,
-            nms_iou: args.nms_iou,
-            nms_scope: if args.nms_across_classes {
-                NmsScope::AcrossClasses
-            } else {
-                NmsScope::PerClass
-            },
-            box_size: BoxSize::Nominal(nominal.clone()),
-            ignore: doc.ignore.iter().map(|r| r.bbox).collect(),
-        };
-        let found = detect(id, &grid, &site_classes, &config)?;
-        bar.suspend(|| ctx.say(format!("{id}: {} detections", found.len())));
-        all.extend(found);
+        bar.suspend(|| {
+            ctx.say(format!(
+                "{id}: {} detections{capped}",
+                sweep.detections.len()
+            ))
+        });
+        all.extend(sweep.detections);
         bar.inc(1);
     }
     bar.finish_and_clear();

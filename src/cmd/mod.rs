@@ -3,6 +3,7 @@
 pub mod crops;
 pub mod demo;
 pub mod detect;
+pub mod eval;
 pub mod init;
 pub mod labels;
 pub mod review;
