@@ -67,6 +67,19 @@ pub enum Command {
         after_help = "Examples:\n  symtrust eval --site ./north-unit --model models/20261201T101500-3fa2c1d0 --out evals/first\n  symtrust eval --site ./north-unit --detections vendor.csv --target-precision 0.95 --out evals/vendor"
     )]
     Eval(cmd::eval::EvalArgs),
+    /// Compare a challenger with the champion on the same frozen held-out sheets
+    /// (exit code 3 when the challenger is worse).
+    #[command(
+        after_help = "Example:\n  symtrust compare --site ./north-unit --champion models/20261201T101500-3fa2c1d0 --challenger models/20261202T020000-9b1e77aa --out comparisons/nightly-1202"
+    )]
+    Compare(cmd::compare::CompareArgs),
+    /// Render an evaluation folder into a report (HTML, Markdown, CSV, sheet
+    /// overlays, audit stamp), or re-check a report with --verify (exit code 3
+    /// when its inputs changed).
+    #[command(
+        after_help = "Examples:\n  symtrust report --site ./north-unit evals/first\n  symtrust report evals/style-b-before --beside evals/style-b-after --title before --title after\n  symtrust report --verify ./north-unit/reports/first"
+    )]
+    Report(cmd::report::ReportArgs),
     /// Serve the local review page: label sheets, accept or reject model proposals.
     #[command(after_help = "Example:\n  symtrust review --site ./north-unit --port 8765")]
     Review(cmd::review::ReviewArgs),
@@ -87,6 +100,8 @@ pub fn dispatch(ctx: &Ctx, command: Command) -> anyhow::Result<u8> {
         Command::Demo(args) => cmd::demo::run(ctx, &args),
         Command::Detect(args) => cmd::detect::run(ctx, &args),
         Command::Eval(args) => cmd::eval::run(ctx, &args),
+        Command::Compare(args) => cmd::compare::run(ctx, &args),
+        Command::Report(args) => cmd::report::run(ctx, &args),
         Command::Review(args) => cmd::review::run(ctx, &args),
     }
 }

@@ -9,6 +9,8 @@ pub const OK: u8 = 0;
 pub const FAILURE: u8 = 1;
 /// Bad usage or bad input: a flag, a file or a document the user must fix.
 pub const BAD_INPUT: u8 = 2;
+/// `compare` and `nightly`: the challenger is worse than the champion and was not promoted.
+pub const REJECTED: u8 = 3;
 
 /// The exit code for an error that ended a command.
 pub fn code_for(err: &anyhow::Error) -> u8 {

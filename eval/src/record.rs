@@ -7,6 +7,7 @@
 //! unsharded run gives ([`merge_inputs`]).
 
 use crate::calibration::FittedCalibration;
+use crate::compare::{McNemarResult, PairedApComparison, Verdict};
 use crate::crop_eval::CropEvaluation;
 use crate::error::{EvalError, Result};
 use crate::match_log::MatchLog;
@@ -192,6 +193,71 @@ pub struct EvaluationRecord {
     pub shard: Option<Shard>,
 }
 
+/// Version of the comparison file layout.
+pub const COMPARISON_SCHEMA_VERSION: u32 = 1;
+
+/// File name of a comparison record.
+pub const COMPARISON_FILE: &str = "comparison.json";
+
+/// The overall outcome of a comparison.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum ComparisonOutcome {
+    /// Not worse on any class, and the mAP difference interval lies above 0.
+    Better,
+    /// Not worse on any class beyond the margin.
+    NotWorse,
+    /// Worse beyond the margin on at least one class.
+    Worse,
+}
+
+impl ComparisonOutcome {
+    /// From a verdict and the mAP difference interval.
+    pub fn of(verdict: &Verdict, ap: &PairedApComparison) -> Self {
+        if !verdict.promote {
+            Self::Worse
+        } else if ap.map.difference.lower.is_some_and(|lo| lo > 0.0) {
+            Self::Better
+        } else {
+            Self::NotWorse
+        }
+    }
+
+    /// Plain word for messages.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Self::Better => "better",
+            Self::NotWorse => "not worse",
+            Self::Worse => "worse",
+        }
+    }
+}
+
+/// A champion and a challenger compared on the same frozen held-out sheets.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ComparisonRecord {
+    /// [`COMPARISON_SCHEMA_VERSION`].
+    pub schema_version: u32,
+    /// One-paragraph summary in plain words.
+    pub summary: String,
+    /// Who ran it, how, where and when.
+    pub stamp: RunStamp,
+    /// The champion.
+    pub champion: DetectorInfo,
+    /// The challenger.
+    pub challenger: DetectorInfo,
+    /// The sheets both were evaluated on, with their hashes.
+    pub sheets: Vec<SheetStamp>,
+    /// Paired bootstrap of the AP difference per class and for the mAP.
+    pub ap: PairedApComparison,
+    /// McNemar's test on paired crop decisions (model runs only).
+    pub mcnemar: Option<McNemarResult>,
+    /// The per-class verdict under the margin.
+    pub verdict: Verdict,
+    /// Better, not worse, or worse.
+    pub outcome: ComparisonOutcome,
+}
+
 /// The combined inputs of shard records, ready to evaluate again.
 #[derive(Debug, Clone, PartialEq)]
 pub struct MergedInputs {
@@ -270,7 +336,8 @@ pub fn merge_inputs(records: &[EvaluationRecord]) -> Result<MergedInputs> {
             .filter_map(|r| r.crop_level.as_ref())
             .flat_map(|c| c.crops.clone())
             .collect();
-        c.sort_by_key(|d| (order(&d.sheet), d.sheet.clone(), d.y, d.x));
+        // Stable: within a sheet, crops keep the order the shard wrote them in.
+        c.sort_by_key(|d| (order(&d.sheet), d.sheet.clone()));
         c
     });
     Ok(MergedInputs {

@@ -112,7 +112,11 @@ pub struct EvalArgs {
 
 /// Parses `K/N`.
 fn parse_shard(s: &str) -> anyhow::Result<Shard> {
-    let bad = || UsageError(format!("--shard {s:?}: expected K/N with 1 <= K <= N, e.g. 2/8"));
+    let bad = || {
+        UsageError(format!(
+            "--shard {s:?}: expected K/N with 1 <= K <= N, e.g. 2/8"
+        ))
+    };
     let (k, n) = s.split_once('/').ok_or_else(bad)?;
     let index: u32 = k.trim().parse().map_err(|_| bad())?;
     let count: u32 = n.trim().parse().map_err(|_| bad())?;
@@ -232,7 +236,10 @@ fn relative(site: &Site, path: &Path) -> String {
 /// Refuses detections whose box centre lies outside their sheet.
 fn check_inside(d: &Detection, sheet: &HeldOutSheet, source: &Path) -> anyhow::Result<()> {
     let (cx, cy) = d.bbox().center();
-    let (w, h) = (f64::from(sheet.doc.sheet.width), f64::from(sheet.doc.sheet.height));
+    let (w, h) = (
+        f64::from(sheet.doc.sheet.width),
+        f64::from(sheet.doc.sheet.height),
+    );
     if !(0.0..=w).contains(&cx) || !(0.0..=h).contains(&cy) {
         return usage(format!(
             "{}: a {} detection on sheet {:?} is centred at ({cx:.1}, {cy:.1}), outside the {w} x {h} px sheet; are the boxes in the site's canonical pixels ({} dpi)?",
@@ -449,10 +456,7 @@ fn file_detections(
                 .iter()
                 .map(|id| store.load(id).map(|d| d.sheet))
                 .collect::<Result<_, _>>()?;
-            (
-                read_coco_results(path, index, &records, &classes)?,
-                "coco",
-            )
+            (read_coco_results(path, index, &records, &classes)?, "coco")
         }
         None => {
             let set = read_detections(path)?;
@@ -497,7 +501,7 @@ fn file_detections(
 }
 
 /// Writes the evaluation folder: built beside `out` and renamed into place.
-fn write_folder(out: &Path, record: &EvaluationRecord) -> anyhow::Result<()> {
+pub fn write_folder(out: &Path, record: &EvaluationRecord) -> anyhow::Result<()> {
     if out.exists() && !out.join(METRICS_FILE).is_file() {
         let empty = std::fs::read_dir(out)
             .map(|mut d| d.next().is_none())
@@ -513,8 +517,7 @@ fn write_folder(out: &Path, record: &EvaluationRecord) -> anyhow::Result<()> {
         Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
         _ => PathBuf::from("."),
     };
-    std::fs::create_dir_all(&parent)
-        .with_context(|| format!("creating {}", parent.display()))?;
+    std::fs::create_dir_all(&parent).with_context(|| format!("creating {}", parent.display()))?;
     let name = out
         .file_name()
         .ok_or_else(|| UsageError(format!("--out {}: not a folder name", out.display())))?
@@ -576,7 +579,8 @@ fn write_folder(out: &Path, record: &EvaluationRecord) -> anyhow::Result<()> {
     Ok(())
 }
 
-fn host_name() -> String {
+/// Host name of this machine, for run stamps.
+pub fn host_name() -> String {
     std::fs::read_to_string("/etc/hostname")
         .map(|s| s.trim().to_string())
         .ok()
@@ -652,77 +656,95 @@ fn assemble(
 
 /// Runs the evaluation.
 pub fn run(ctx: &Ctx, args: &EvalArgs) -> anyhow::Result<u8> {
-    let started = (now_rfc3339(), Instant::now());
     let site = ctx.open_site()?;
-    let config = eval_config(args, &site)?;
+    let record = build_record(ctx, &site, args)?;
+    write_folder(&args.out, &record)?;
+    report_result(ctx, args, &record)
+}
+
+/// Evaluation arguments with every default, as if `symtrust eval` had been
+/// given only `extra` (e.g. `["--model", DIR, "--out", DIR]`).
+pub fn args_from(extra: &[&str]) -> anyhow::Result<EvalArgs> {
+    #[derive(clap::Parser)]
+    struct Wrapper {
+        #[command(flatten)]
+        args: EvalArgs,
+    }
+    let argv = std::iter::once("eval").chain(extra.iter().copied());
+    Ok(<Wrapper as clap::Parser>::try_parse_from(argv)
+        .map_err(|e| UsageError(e.to_string()))?
+        .args)
+}
+
+/// Evaluates as `args` ask and returns the record (nothing is written).
+pub fn build_record(ctx: &Ctx, site: &Site, args: &EvalArgs) -> anyhow::Result<EvaluationRecord> {
+    let started = (now_rfc3339(), Instant::now());
+    let config = eval_config(args, site)?;
     if site.config.held_out.is_empty() {
         return usage(format!(
             "{}: no held-out sheets are listed in site.toml; name the sheets to evaluate on under held_out",
             site.root.join("site.toml").display()
         ));
     }
-    let record = if !args.merge.is_empty() {
-        merged(&site, args, &config, started)?
-    } else {
-        let shard = args.shard.as_deref().map(parse_shard).transpose()?;
-        let ids = match shard {
-            Some(s) => shard_sheets(&site.config.held_out, s)?,
-            None => site.config.held_out.clone(),
-        };
-        let mut sheets = read_held_out(&site, &ids)?;
-        let (info, settings, detections, crop_level, calibration_items) =
-            if let Some(dir) = &args.model {
-                let run = run_model(ctx, &site, dir, args, &mut sheets, &config)?;
-                (
-                    run.info,
-                    Some(run.settings),
-                    run.detections,
-                    Some(run.crops),
-                    run.calibration_items,
-                )
-            } else {
-                if args.calibrate {
-                    return usage("--calibrate needs --model (it sweeps the validation sheets)");
-                }
-                let path = args
-                    .detections
-                    .as_ref()
-                    .expect("clap requires --model, --detections or --merge");
-                let (info, grouped, elsewhere) =
-                    file_detections(&site, path, args.coco_index.as_deref(), &sheets)?;
-                if elsewhere > 0 {
-                    ctx.say(format!(
-                        "{elsewhere} detections on sheets that are not held out were left out"
-                    ));
-                }
-                (info, None, grouped, None, None)
-            };
-        let mut stamps = Vec::with_capacity(sheets.len());
-        let mut inputs = Vec::with_capacity(sheets.len());
-        for (s, d) in sheets.into_iter().zip(detections) {
-            inputs.push(SheetInput {
-                sheet: s.stamp.sheet.clone(),
-                truths: s.truths,
-                detections: d,
-                ignore: s.doc.ignore.iter().map(|r| r.bbox).collect(),
-            });
-            stamps.push(s.stamp);
-        }
-        assemble(
-            &site,
-            info,
-            settings,
-            stamps,
-            inputs,
-            crop_level,
-            calibration_items,
-            &config,
-            shard,
-            started,
-        )?
+    if !args.merge.is_empty() {
+        return merged(site, args, &config, started);
+    }
+    let shard = args.shard.as_deref().map(parse_shard).transpose()?;
+    let ids = match shard {
+        Some(s) => shard_sheets(&site.config.held_out, s)?,
+        None => site.config.held_out.clone(),
     };
-    write_folder(&args.out, &record)?;
-    report_result(ctx, args, &record)
+    let mut sheets = read_held_out(site, &ids)?;
+    let (info, settings, detections, crop_level, calibration_items) = if let Some(dir) = &args.model
+    {
+        let run = run_model(ctx, site, dir, args, &mut sheets, &config)?;
+        (
+            run.info,
+            Some(run.settings),
+            run.detections,
+            Some(run.crops),
+            run.calibration_items,
+        )
+    } else {
+        if args.calibrate {
+            return usage("--calibrate needs --model (it sweeps the validation sheets)");
+        }
+        let path = args
+            .detections
+            .as_ref()
+            .expect("clap requires --model, --detections or --merge");
+        let (info, grouped, elsewhere) =
+            file_detections(site, path, args.coco_index.as_deref(), &sheets)?;
+        if elsewhere > 0 {
+            ctx.say(format!(
+                "{elsewhere} detections on sheets that are not held out were left out"
+            ));
+        }
+        (info, None, grouped, None, None)
+    };
+    let mut stamps = Vec::with_capacity(sheets.len());
+    let mut inputs = Vec::with_capacity(sheets.len());
+    for (s, d) in sheets.into_iter().zip(detections) {
+        inputs.push(SheetInput {
+            sheet: s.stamp.sheet.clone(),
+            truths: s.truths,
+            detections: d,
+            ignore: s.doc.ignore.iter().map(|r| r.bbox).collect(),
+        });
+        stamps.push(s.stamp);
+    }
+    assemble(
+        site,
+        info,
+        settings,
+        stamps,
+        inputs,
+        crop_level,
+        calibration_items,
+        &config,
+        shard,
+        started,
+    )
 }
 
 /// `--merge`: combines shard folders, evaluating their pooled inputs again.
@@ -791,10 +813,7 @@ fn report_result(ctx: &Ctx, args: &EvalArgs, record: &EvaluationRecord) -> anyho
     } else {
         ctx.say(&record.trust_statement);
         ctx.say(format!("\n{}", record.caution));
-        ctx.say(format!(
-            "\nwrote {}",
-            args.out.join(METRICS_FILE).display()
-        ));
+        ctx.say(format!("\nwrote {}", args.out.join(METRICS_FILE).display()));
     }
     Ok(exit::OK)
 }
