@@ -87,6 +87,14 @@ pub struct ModelCard {
     pub weights_file: String,
     /// SHA-256 of the weights file.
     pub weights_sha256: String,
+    /// Blank-paper threshold of the score map: windows whose fraction of ink
+    /// pixels (8-bit value below [`crate::blank::INK_LEVEL`]) is below it get
+    /// the scores of an all-paper window without running the dense layers.
+    /// Half the smallest ink fraction of any positive training crop, so no
+    /// positive training crop would have been skipped. 0 disables skipping;
+    /// cards written before this field load with 0.
+    #[serde(default)]
+    pub blank_ink_fraction: f64,
 }
 
 /// Encodes a network's weights as safetensors bytes (deterministic: tensors are
@@ -156,6 +164,7 @@ pub fn write_model(
         validation: outcome.validation.clone(),
         weights_file: WEIGHTS_FILE.to_string(),
         weights_sha256: sha,
+        blank_ink_fraction: outcome.blank_ink_fraction,
     };
     let card_json = serde_json::to_string_pretty(&card).map_err(|e| TrainerError::Settings {
         message: format!("cannot encode the model card: {e}"),

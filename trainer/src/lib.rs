@@ -10,6 +10,7 @@
 
 pub mod arch;
 pub mod augment;
+pub mod blank;
 pub mod card;
 pub mod checkpoint;
 pub mod data;

@@ -275,6 +275,36 @@ mod tests {
     }
 
     #[test]
+    fn initial_loss_on_random_data_is_close_to_ln_classes() {
+        // He initialisation keeps the activations' scale through the ReLU
+        // layers and the output layer's sqrt(1 / fan_in) bound keeps the
+        // logits small, so the untrained cross-entropy is near ln K, the loss
+        // of uniform probabilities (common practice as a first sanity check).
+        let arch =
+            Architecture::from_settings(&symtrust_labels::site::ModelSettings::default(), 100, 4)
+                .unwrap();
+        let mut rng = SeededRng::new(40);
+        let px: Vec<f32> = (0..64 * 100 * 100)
+            .map(|_| if rng.chance(0.1) { 1.0 } else { 0.0 })
+            .collect();
+        let x = Tensor::from_vec(px, (64, 1, 100, 100), &Device::Cpu).unwrap();
+        let labels: Vec<usize> = (0..64).map(|i| i % 4).collect();
+        for seed in [1, 2, 3] {
+            let net = Network::init(&arch, seed, DType::F32).unwrap();
+            let logits = net.forward(&x, None).unwrap();
+            let loss = crate::train::weighted_loss(&logits, &labels, &[1.0; 4])
+                .unwrap()
+                .to_scalar::<f32>()
+                .unwrap() as f64;
+            let ln_k = 4f64.ln();
+            assert!(
+                (loss - ln_k).abs() < 0.1 * ln_k,
+                "seed {seed}: initial loss {loss}, ln 4 = {ln_k}"
+            );
+        }
+    }
+
+    #[test]
     fn loading_refuses_a_wrong_shape() {
         let net = Network::init(&tiny(), 1, DType::F32).unwrap();
         let mut map: HashMap<String, Tensor> = net.named_tensors().unwrap().into_iter().collect();

@@ -23,30 +23,63 @@
 //! of `tile_cells x tile_cells` native cells whose pixel regions overlap by
 //! `window - native stride`; tiles run in parallel, at most one per thread at a
 //! time, so peak memory depends on the tile size and the thread count, not on
-//! the sheet. Scores are softmax probabilities; `scores` is row-major by cell,
+//! the sheet.
+//!
+//! # Kernels and blank paper
+//!
+//! The convolution stack runs through [`crate::ops`] (fast kernels); the
+//! dense layers run through [`crate::kernels::head`] at each cell's patch of
+//! the last feature map. With [`ScoreMapOptions::skip_below_ink`], windows
+//! whose ink fraction is below the threshold (counted from an integral image
+//! of the binarised tile, see [`crate::blank`]) get the scores of an
+//! all-paper window and skip the dense layers; a tile with no window left
+//! skips the convolutions too. [`ScoreMap::skipped`] counts those cells.
+//!
+//! Scores are softmax probabilities; `scores` is row-major by cell,
 //! then class: `scores[(r * cols + c) * classes + k]`.
 
+use crate::blank::InkCounts;
 use crate::data::ink;
 use crate::error::{Result, TensorContext, TrainerError};
 use crate::infer::Classifier;
+use crate::kernels::head::DenseHead;
 use candle_core::{Device, Tensor};
 use rayon::prelude::*;
 
 /// How to sweep a sheet.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, PartialEq)]
 pub struct ScoreMapOptions {
     /// Grid step in pixels; must divide the model's native stride.
     pub stride: usize,
     /// Tile side in native grid cells (memory per tile grows with its square).
     pub tile_cells: usize,
+    /// Blank-paper skipping: windows whose ink fraction (see
+    /// [`crate::blank`]) is below this get the scores of an all-paper window
+    /// without running the dense layers. `None` or 0 computes every window.
+    pub skip_below_ink: Option<f64>,
 }
 
 impl ScoreMapOptions {
-    /// The native stride of `classifier` and the default tile.
+    /// The native stride of `classifier`, the default tile and the model
+    /// card's blank-paper threshold (no skipping without a card or with a
+    /// card written before the threshold existed).
     pub fn native(classifier: &Classifier) -> Self {
         Self {
             stride: classifier.network.arch.native_stride(),
             tile_cells: DEFAULT_TILE_CELLS,
+            skip_below_ink: classifier
+                .card
+                .as_ref()
+                .map(|c| c.blank_ink_fraction)
+                .filter(|t| *t > 0.0),
+        }
+    }
+
+    /// [`ScoreMapOptions::native`] without skipping: every window computed.
+    pub fn dense(classifier: &Classifier) -> Self {
+        Self {
+            skip_below_ink: None,
+            ..Self::native(classifier)
         }
     }
 }
@@ -69,6 +102,10 @@ pub struct ScoreMap {
     pub rows: usize,
     /// `rows * cols * classes` probabilities, cell-major.
     pub scores: Vec<f32>,
+    /// Cells given the all-paper scores by blank-paper skipping (0 without skipping).
+    pub skipped: usize,
+    /// The ink-fraction threshold that was applied (`None`: no skipping).
+    pub skip_below_ink: Option<f64>,
 }
 
 impl ScoreMap {
@@ -82,6 +119,11 @@ impl ScoreMap {
     /// Top-left pixel `(x, y)` of the window of cell `(row, col)`.
     pub fn window_origin(&self, row: usize, col: usize) -> (usize, usize) {
         (col * self.stride, row * self.stride)
+    }
+
+    /// Cells of the grid.
+    pub fn cells(&self) -> usize {
+        self.rows * self.cols
     }
 }
 
@@ -102,6 +144,14 @@ struct Tile {
     y0: usize,
     cols: usize,
     rows: usize,
+}
+
+/// What a tile sweep needs besides the tile: the dense head, the all-paper
+/// scores and the threshold in ink pixels per window.
+struct Sweep<'a> {
+    head: DenseHead<'a, f32>,
+    blank: Vec<f32>,
+    min_ink: Option<u32>,
 }
 
 impl Classifier {
@@ -132,6 +182,14 @@ impl Classifier {
                 ),
             });
         }
+        let threshold = opts.skip_below_ink.filter(|t| *t > 0.0);
+        if let Some(t) = threshold
+            && !(t.is_finite() && t <= 1.0)
+        {
+            return Err(TrainerError::Settings {
+                message: format!("blank-paper threshold {t} must be an ink fraction in [0, 1]"),
+            });
+        }
         if width < window || height < window {
             return Err(TrainerError::WindowMismatch {
                 what: "sheet".to_string(),
@@ -141,7 +199,6 @@ impl Classifier {
         }
         let (cols, rows) = grid_size(width, height, window, opts.stride);
         let k = self.classes.len();
-        let mut scores = vec![0f32; rows * cols * k];
         let mut jobs = Vec::new();
         for dy in (0..native).step_by(opts.stride) {
             for dx in (0..native).step_by(opts.stride) {
@@ -163,21 +220,44 @@ impl Classifier {
                 }
             }
         }
-        let threads = rayon::current_num_threads().max(1);
-        for group in jobs.chunks(threads) {
-            let done: Vec<Vec<f32>> = group
-                .par_iter()
-                .map(|t| self.tile_scores(pixels, width, t))
-                .collect::<Result<_>>()?;
-            for (t, tile) in group.iter().zip(done) {
-                for i in 0..t.rows {
-                    for j in 0..t.cols {
-                        let r = (t.y0 + i * native) / opts.stride;
-                        let c = (t.x0 + j * native) / opts.stride;
-                        let src = (i * t.cols + j) * k;
-                        let dst = (r * cols + c) * k;
-                        scores[dst..dst + k].copy_from_slice(&tile[src..src + k]);
-                    }
+        let dense = self
+            .network
+            .dense_values()
+            .during("reading the dense layers")?;
+        let blank = match threshold {
+            Some(_) => self.classify(&[&vec![255u8; window * window]])?.remove(0),
+            None => Vec::new(),
+        };
+        let sweep = Sweep {
+            head: DenseHead {
+                hidden_w: &dense[0],
+                hidden_b: &dense[1],
+                out_w: &dense[2],
+                out_b: &dense[3],
+                channels: arch.conv_channels[arch.layers() - 1],
+                side: arch.feature_side(),
+            },
+            blank,
+            // Skip when ink / window^2 < t, i.e. ink < ceil(t window^2).
+            min_ink: threshold.map(|t| (t * (window * window) as f64).ceil() as u32),
+        };
+        // One tile per worker at a time: each tile's kernels run on its own
+        // thread, so peak memory is a few tiles' worth whatever the sheet.
+        let done: Vec<(Vec<f32>, usize)> = jobs
+            .par_iter()
+            .map(|t| self.tile_scores(pixels, width, t, &sweep))
+            .collect::<Result<_>>()?;
+        let mut scores = vec![0f32; rows * cols * k];
+        let mut skipped = 0;
+        for (t, (tile, n_skipped)) in jobs.iter().zip(done) {
+            skipped += n_skipped;
+            for i in 0..t.rows {
+                for j in 0..t.cols {
+                    let r = (t.y0 + i * native) / opts.stride;
+                    let c = (t.x0 + j * native) / opts.stride;
+                    let src = (i * t.cols + j) * k;
+                    let dst = (r * cols + c) * k;
+                    scores[dst..dst + k].copy_from_slice(&tile[src..src + k]);
                 }
             }
         }
@@ -188,6 +268,8 @@ impl Classifier {
             cols,
             rows,
             scores,
+            skipped,
+            skip_below_ink: threshold,
         })
     }
 
@@ -205,29 +287,80 @@ impl Classifier {
         )
     }
 
-    /// Probabilities of one tile's cells, cell-major then class.
-    fn tile_scores(&self, pixels: &[u8], width: usize, t: &Tile) -> Result<Vec<f32>> {
+    /// Probabilities of one tile's cells, cell-major then class, and how many
+    /// cells were skipped as blank paper.
+    fn tile_scores(
+        &self,
+        pixels: &[u8],
+        width: usize,
+        t: &Tile,
+        sweep: &Sweep<'_>,
+    ) -> Result<(Vec<f32>, usize)> {
         let arch = &self.network.arch;
-        let native = arch.native_stride();
-        let w = native * (t.cols - 1) + arch.window;
-        let h = native * (t.rows - 1) + arch.window;
-        let mut region = Vec::with_capacity(w * h);
+        let (native, window) = (arch.native_stride(), arch.window);
+        let k = self.classes.len();
+        let w = native * (t.cols - 1) + window;
+        let h = native * (t.rows - 1) + window;
+        let mut raw = Vec::with_capacity(w * h);
         for y in t.y0..t.y0 + h {
-            let row = &pixels[y * width + t.x0..y * width + t.x0 + w];
-            region.extend(row.iter().map(|p| ink(*p)));
+            raw.extend_from_slice(&pixels[y * width + t.x0..y * width + t.x0 + w]);
         }
-        let run = || -> candle_core::Result<Vec<f32>> {
-            let x = Tensor::from_vec(region, (1, 1, h, w), &Device::Cpu)?;
-            let logits = self.network.forward_dense_as_conv(&x)?;
-            let logits = logits.narrow(2, 0, t.rows)?.narrow(3, 0, t.cols)?;
-            let probs = candle_nn::ops::softmax(&logits, 1)?;
-            probs
-                .squeeze(0)?
-                .permute((1, 2, 0))?
-                .flatten_all()?
-                .to_vec1::<f32>()
+        let cells: Vec<(usize, usize)> = (0..t.rows)
+            .flat_map(|i| (0..t.cols).map(move |j| (i, j)))
+            .collect();
+        let active: Vec<(usize, usize)> = match sweep.min_ink {
+            None => cells.clone(),
+            Some(min_ink) => {
+                let counts = InkCounts::new(&raw, w, h);
+                cells
+                    .iter()
+                    .copied()
+                    .filter(|(i, j)| counts.square(j * native, i * native, window) >= min_ink)
+                    .collect()
+            }
         };
-        run().during("computing a score-map tile")
+        let skipped = cells.len() - active.len();
+        let mut out = if skipped > 0 {
+            sweep.blank.repeat(cells.len())
+        } else {
+            Vec::new()
+        };
+        if active.is_empty() {
+            return Ok((out, skipped));
+        }
+        let region: Vec<f32> = raw.iter().map(|p| ink(*p)).collect();
+        let features = || -> candle_core::Result<(Vec<f32>, usize, usize)> {
+            let x = Tensor::from_vec(region, (1, 1, h, w), &Device::Cpu)?;
+            let f = self.network.features(&x)?;
+            let (_, _, fh, fw) = f.dims4()?;
+            Ok((f.flatten_all()?.to_vec1::<f32>()?, fh, fw))
+        };
+        let (feats, fh, fw) = features().during("computing a score-map tile")?;
+        let logits = sweep.head.logits(&feats, fh, fw, &active);
+        if skipped == 0 {
+            out = logits;
+            out.chunks_mut(k).for_each(softmax);
+        } else {
+            for ((i, j), row) in active.iter().zip(logits.chunks(k)) {
+                let dst = &mut out[(i * t.cols + j) * k..][..k];
+                dst.copy_from_slice(row);
+                softmax(dst);
+            }
+        }
+        Ok((out, skipped))
+    }
+}
+
+/// In-place softmax of one cell's logits (max-shifted, as Candle's).
+fn softmax(v: &mut [f32]) {
+    let m = v.iter().fold(f32::NEG_INFINITY, |a, b| a.max(*b));
+    let mut sum = 0.0;
+    for x in v.iter_mut() {
+        *x = (*x - m).exp();
+        sum += *x;
+    }
+    for x in v.iter_mut() {
+        *x /= sum;
     }
 }
 

@@ -158,6 +158,21 @@ pub struct TrainOutcome {
     pub class_weights: Vec<f64>,
     /// The run key (names the checkpoint).
     pub run_key: String,
+    /// Blank-paper threshold for the score map ([`crate::blank`]): half the
+    /// smallest ink fraction of a positive training crop, 0 for none.
+    pub blank_ink_fraction: f64,
+}
+
+/// The blank-paper threshold of a data set: from its positive training crops
+/// (every class but the background, the last class).
+pub fn blank_threshold(data: &Dataset) -> f64 {
+    let background = data.classes.len().saturating_sub(1);
+    crate::blank::threshold_from_positives(
+        data.train
+            .iter()
+            .filter(|s| s.class != background)
+            .map(|s| s.pixels.as_slice()),
+    )
 }
 
 /// The key of a run: what decides its weights, hashed.
@@ -467,6 +482,7 @@ pub fn train_with(
         seconds: state.seconds,
         class_weights: weights,
         run_key: key,
+        blank_ink_fraction: blank_threshold(data),
     })
 }
 

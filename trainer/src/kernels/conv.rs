@@ -39,7 +39,7 @@ use std::sync::OnceLock;
 pub const GROUP: usize = 8;
 
 /// Largest column buffer per band, in elements (4 MiB of f32).
-const BAND_ELEMENTS: usize = 1 << 20;
+const BAND_ELEMENTS: usize = 1 << 16;
 
 /// Shapes and options of one convolution block.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]

@@ -240,3 +240,103 @@ fn whole_network_forward_matches_the_stock_model() {
     let e = rel_err(&fast, &stock);
     assert!(e <= 1e-4, "dense-as-conv logits: relative error {e}");
 }
+
+#[test]
+fn training_curves_with_fast_and_stock_kernels_agree() {
+    use symtrust_trainer::data::{DataSource, Sample};
+    use symtrust_trainer::train::{Silent, train_with};
+    use symtrust_trainer::{Dataset, TrainOptions};
+    // Grey noise (never pure paper, so no exact ties) with a dark bar whose
+    // direction is the class; the third class has no bar.
+    let side = 22;
+    let mut rng = SeededRng::new(31);
+    let mut crops = |n: usize| -> Vec<Sample> {
+        (0..n)
+            .map(|i| {
+                let class = i % 3;
+                let at = 4 + rng.below(14) as usize;
+                let pixels = (0..side * side)
+                    .map(|p| {
+                        let (y, x) = (p / side, p % side);
+                        let bar =
+                            (class == 0 && y / 2 == at / 2) || (class == 1 && x / 2 == at / 2);
+                        if bar {
+                            10 + rng.below(40) as u8
+                        } else {
+                            190 + rng.below(60) as u8
+                        }
+                    })
+                    .collect();
+                Sample { pixels, class }
+            })
+            .collect()
+    };
+    let data = Dataset {
+        classes: vec!["h".into(), "v".into(), "background".into()],
+        rotatable: vec![false; 3],
+        window: side,
+        train: crops(96),
+        validation: crops(30),
+        source: DataSource {
+            crop_library: "noise".into(),
+            manifest_sha256: String::new(),
+            index_sha256: String::new(),
+            dpi: 200.0,
+        },
+    };
+    let arch = Architecture {
+        window: side,
+        conv_channels: vec![4, 6],
+        conv_kernels: vec![3, 3],
+        hidden: 8,
+        dropout: 0.25,
+        classes: 3,
+    };
+    let opts = TrainOptions {
+        epochs: 6,
+        batch_size: 16,
+        learning_rate: 1e-2,
+        weight_decay: 1e-4,
+        patience: 0,
+        seed: 2,
+        augment: false,
+    };
+    let run = |k: Kernels| train_with(k, &data, &arch, &opts, None, false, &mut Silent).unwrap();
+    let (fast, stock) = (run(Kernels::Fast), run(Kernels::Stock));
+    assert!(
+        fast.log[5].train_loss < 0.8 * fast.log[0].train_loss && fast.validation.accuracy >= 0.8,
+        "the run learns: {:?}",
+        fast.log
+    );
+    for (a, b) in fast.log.iter().zip(&stock.log) {
+        for (what, x, y) in [
+            ("train loss", a.train_loss, b.train_loss),
+            ("validation loss", a.val_loss, b.val_loss),
+        ] {
+            assert!(
+                (x - y).abs() <= 1e-4 * y.abs(),
+                "epoch {} {what}: fast {x} vs stock {y}",
+                a.epoch
+            );
+        }
+    }
+    let wf: Vec<Vec<f64>> = fast
+        .network
+        .params
+        .iter()
+        .map(|v| values(v.as_tensor()))
+        .collect();
+    let ws: Vec<Vec<f64>> = stock
+        .network
+        .params
+        .iter()
+        .map(|v| values(v.as_tensor()))
+        .collect();
+    for (i, (a, b)) in wf.iter().zip(&ws).enumerate() {
+        let e = rel_err(a, b);
+        assert!(
+            e <= 1e-3,
+            "parameter {i}: relative difference {e} after training"
+        );
+    }
+}

@@ -6,6 +6,7 @@ use candle_core::DType;
 use proptest::prelude::*;
 use symtrust_labels::SeededRng;
 use symtrust_labels::site::ModelSettings;
+use symtrust_trainer::blank::ink_fraction;
 use symtrust_trainer::model::Network;
 use symtrust_trainer::scoremap::grid_size;
 use symtrust_trainer::{Architecture, Classifier, ScoreMap, ScoreMapOptions};
@@ -118,7 +119,7 @@ proptest! {
         let (w, h) = (arch.window + extra_w, arch.window + extra_h);
         let px = sheet(w, h, image_seed);
         let stride = arch.native_stride() >> stride_div;
-        let map = clf.score_map(&px, w, h, &ScoreMapOptions { stride, tile_cells }).unwrap();
+        let map = clf.score_map(&px, w, h, &ScoreMapOptions { stride, tile_cells, skip_below_ink: None }).unwrap();
         assert_matches_naive(&clf, &px, w, h, &map);
     }
 }
@@ -145,6 +146,7 @@ fn default_network_score_map_matches_and_aligns_at_the_edges() {
             &ScoreMapOptions {
                 stride: 2,
                 tile_cells: 1,
+                skip_below_ink: None,
             },
         )
         .unwrap();
@@ -210,6 +212,7 @@ fn bad_sheets_and_strides_are_refused() {
     let three = ScoreMapOptions {
         stride: 3,
         tile_cells: 8,
+        skip_below_ink: None,
     };
     assert!(
         clf.score_map(&px, 30, 30, &three)
@@ -220,5 +223,79 @@ fn bad_sheets_and_strides_are_refused() {
     assert!(
         clf.score_map(&px[1..], 30, 30, &ScoreMapOptions::native(&clf))
             .is_err()
+    );
+}
+
+#[test]
+fn blank_skipping_changes_only_windows_below_the_threshold_and_counts_them() {
+    // Paper with a few ink blocks: windows over a block keep their dense
+    // scores, windows with less ink than the threshold get the all-paper
+    // window's scores, and `skipped` is the brute-force count of the latter.
+    let arch = three_layer();
+    let clf = classifier(&arch, 13);
+    let (w, h) = (150, 120);
+    let mut px = vec![255u8; w * h];
+    let mut rng = SeededRng::new(14);
+    for _ in 0..3 {
+        let (x0, y0) = (rng.below(140) as usize, rng.below(110) as usize);
+        for y in y0..(y0 + 9).min(h) {
+            for x in x0..(x0 + 9).min(w) {
+                px[y * w + x] = rng.below(100) as u8;
+            }
+        }
+    }
+    let t = 0.02;
+    let blank = clf.classify(&[&vec![255u8; 38 * 38]]).unwrap().remove(0);
+    for (stride, tile_cells) in [(8, 64), (4, 3), (2, 1)] {
+        let dense = ScoreMapOptions {
+            stride,
+            tile_cells,
+            skip_below_ink: None,
+        };
+        let dense = clf.score_map(&px, w, h, &dense).unwrap();
+        assert_eq!(dense.skipped, 0);
+        let opts = ScoreMapOptions {
+            stride,
+            tile_cells,
+            skip_below_ink: Some(t),
+        };
+        let map = clf.score_map(&px, w, h, &opts).unwrap();
+        assert_eq!(map.skip_below_ink, Some(t));
+        let mut below = 0;
+        for r in 0..map.rows {
+            for c in 0..map.cols {
+                let (x, y) = map.window_origin(r, c);
+                let skip = ink_fraction(&crop(&px, w, x, y, 38)) < t;
+                below += usize::from(skip);
+                let want = if skip {
+                    blank.as_slice()
+                } else {
+                    dense.cell(r, c)
+                };
+                for (a, b) in map.cell(r, c).iter().zip(want) {
+                    assert!(
+                        (a - b).abs() <= 1e-5,
+                        "stride {stride} cell ({r}, {c}) skipped {skip}"
+                    );
+                }
+            }
+        }
+        assert_eq!(map.skipped, below, "stride {stride}");
+        assert!(
+            below > 0 && below < map.cells(),
+            "stride {stride}: {below} of {}",
+            map.cells()
+        );
+    }
+    let bad = ScoreMapOptions {
+        stride: 8,
+        tile_cells: 8,
+        skip_below_ink: Some(1.5),
+    };
+    assert!(
+        clf.score_map(&px, w, h, &bad)
+            .unwrap_err()
+            .to_string()
+            .contains("1.5")
     );
 }

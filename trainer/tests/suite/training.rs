@@ -2,9 +2,13 @@
 //! reproducibility, interruption and resume, the model folder and its card.
 
 use super::library::{WINDOW, classes, tiny_arch, write_library};
+use symtrust_trainer::blank::ink_fraction;
 use symtrust_trainer::card::{LOG_FILE, ModelInputs, load_model, weights_bytes, write_model};
+use symtrust_trainer::train::blank_threshold;
 use symtrust_trainer::train::{Flow, Silent, TrainObserver};
-use symtrust_trainer::{Classifier, Dataset, TrainOptions, TrainerError, train};
+use symtrust_trainer::{
+    Classifier, Dataset, ModelCard, ScoreMapOptions, TrainOptions, TrainerError, train,
+};
 
 fn options(seed: u64, epochs: usize) -> TrainOptions {
     TrainOptions {
@@ -77,6 +81,26 @@ fn learns_the_test_symbols_reproducibly_and_writes_a_checked_model() {
         validation_counts: data.class_counts(&data.validation),
     };
     let (card, folder) = write_model(&models, &a, &inputs).unwrap();
+    // Blank-paper threshold: no positive training crop would have been skipped.
+    let t = card.blank_ink_fraction;
+    assert!(t > 0.0 && t == blank_threshold(&data), "{t}");
+    let positives: Vec<&[u8]> = data
+        .train
+        .iter()
+        .filter(|s| s.class != 3)
+        .map(|s| s.pixels.as_slice())
+        .collect();
+    assert!(!positives.is_empty());
+    let least = positives
+        .iter()
+        .map(|p| ink_fraction(p))
+        .fold(1.0, f64::min);
+    assert!((2.0 * t - least).abs() < 1e-12 && positives.iter().all(|p| ink_fraction(p) >= t));
+    // A card written before the field existed loads with skipping off.
+    let mut old = serde_json::to_value(&card).unwrap();
+    old.as_object_mut().unwrap().remove("blank_ink_fraction");
+    let old: ModelCard = serde_json::from_value(old).unwrap();
+    assert_eq!(old.blank_ink_fraction, 0.0);
     assert_eq!(folder, models.join(&card.id));
     assert_eq!(
         card.data.crop_library,
@@ -99,6 +123,8 @@ fn learns_the_test_symbols_reproducibly_and_writes_a_checked_model() {
 
     // The loaded model agrees with the validation figure on the validation crops.
     let clf = Classifier::load(&folder).unwrap();
+    assert_eq!(ScoreMapOptions::native(&clf).skip_below_ink, Some(t));
+    assert_eq!(ScoreMapOptions::dense(&clf).skip_below_ink, None);
     let windows: Vec<&[u8]> = data
         .validation
         .iter()
