@@ -706,3 +706,76 @@ fn compare_evaluates_model_folders_itself() {
     assert!(PathBuf::from(tmp.path().join("cmp/champion/metrics.json")).is_file());
     assert!(tmp.path().join("cmp/challenger/metrics.json").is_file());
 }
+
+#[test]
+fn detect_propose_adds_drafts_and_never_touches_decided_labels() {
+    let tmp = tempfile::tempdir().unwrap();
+    let model = trained_copy(tmp.path());
+    let doc_path = tmp.path().join("site/labels/fp-a-0001.json");
+    let before = read_json(&doc_path);
+    let decided = |doc: &Value| -> Vec<Value> {
+        doc["symbols"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .filter(|s| s["state"] != "draft")
+            .cloned()
+            .collect()
+    };
+    let propose = || {
+        symtrust(
+            tmp.path(),
+            &[
+                "detect",
+                "--site",
+                "site",
+                "--model",
+                &model,
+                "--out",
+                "found.csv",
+                "--min-score",
+                "0.3",
+                "--propose",
+                "fp-a-0001",
+                "--quiet",
+                "--json",
+            ],
+        )
+        .expect_code(0)
+        .json()
+    };
+    let first = propose();
+    let merge = &first["proposed"][0]["merge"];
+    let after = read_json(&doc_path);
+    assert_eq!(
+        decided(&after),
+        decided(&before),
+        "accepted labels are untouched"
+    );
+    let drafts: Vec<&Value> = after["symbols"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .filter(|s| s["state"] == "draft")
+        .collect();
+    assert_eq!(drafts.len() as u64, merge["added"].as_u64().unwrap());
+    for d in &drafts {
+        assert_eq!(d["origin"]["kind"], "proposed");
+        assert_eq!(
+            d["origin"]["model"].as_str().unwrap(),
+            model.trim_start_matches("site/models/")
+        );
+    }
+    // A second run replaces its own undecided proposals instead of piling up.
+    let second = propose();
+    let again = read_json(&doc_path);
+    let n_drafts = again["symbols"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .filter(|s| s["state"] == "draft")
+        .count();
+    assert_eq!(n_drafts, drafts.len());
+    let m2 = &second["proposed"][0]["merge"];
+    assert_eq!(m2["replaced"], merge["added"]);
+}

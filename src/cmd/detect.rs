@@ -12,7 +12,12 @@ use crate::sweep::{check_model, check_settings, sweep_sheet};
 use clap::Args;
 use std::path::PathBuf;
 use symtrust_eval::record::DetectSettings;
-use symtrust_labels::detections::{DETECTIONS_SCHEMA_VERSION, DetectionSet, write_detections};
+use symtrust_labels::LabelError;
+use symtrust_labels::clock::{current_user, now_rfc3339};
+use symtrust_labels::detections::{
+    DETECTIONS_SCHEMA_VERSION, Detection, DetectionSet, write_detections,
+};
+use symtrust_labels::proposals::{MergeOptions, MergeSummary, merge_proposals};
 use symtrust_labels::sheets::load_sheet;
 use symtrust_labels::store::LabelStore;
 use symtrust_trainer::Classifier;
@@ -39,6 +44,10 @@ pub struct DetectArgs {
     /// (default: no cap; a P&ID sheet can carry hundreds of symbols).
     #[arg(long, value_name = "N")]
     pub max_per_sheet: Option<usize>,
+    /// Also write the detections into each sheet's label document as draft
+    /// proposals for review (never overwriting accepted, rejected or corrected labels).
+    #[arg(long)]
+    pub propose: bool,
     /// Registered sheet ids to sweep.
     #[arg(required = true, value_name = "SHEET")]
     pub sheets: Vec<String>,
@@ -60,6 +69,7 @@ pub fn run(ctx: &Ctx, args: &DetectArgs) -> anyhow::Result<u8> {
     let store = LabelStore::new(&site);
     let bar = ctx.progress(args.sheets.len() as u64, "sweeping");
     let mut all = Vec::new();
+    let mut proposed = Vec::new();
     for id in &args.sheets {
         bar.set_message(id.clone());
         if !store.exists(id) {
@@ -82,6 +92,27 @@ pub fn run(ctx: &Ctx, args: &DetectArgs) -> anyhow::Result<u8> {
                 sweep.detections.len()
             ))
         });
+        if args.propose {
+            let model = model_id.as_deref().ok_or_else(|| {
+                crate::context::UsageError(format!(
+                    "{}: --propose needs a model card (the proposals name the model)",
+                    args.model.display()
+                ))
+            })?;
+            let summary = propose(&store, id, model, &sweep.detections)?;
+            let held = if site.is_held_out(id) {
+                " (a held-out sheet: review its proposals with care, the evaluation takes accepted labels as truth)"
+            } else {
+                ""
+            };
+            bar.suspend(|| {
+                ctx.say(format!(
+                    "{id}: {} proposals added, {} older undecided proposals replaced, {} labels kept, {} duplicates and {} in ignore regions dropped{held}",
+                    summary.added, summary.replaced, summary.kept, summary.duplicates, summary.in_ignore
+                ))
+            });
+            proposed.push((id.clone(), summary));
+        }
         all.extend(sweep.detections);
         bar.inc(1);
     }
@@ -98,6 +129,10 @@ pub fn run(ctx: &Ctx, args: &DetectArgs) -> anyhow::Result<u8> {
             "model": set.model,
             "detections": set.detections.len(),
             "sheets": args.sheets,
+            "proposed": proposed
+                .iter()
+                .map(|(id, s)| serde_json::json!({"sheet": id, "merge": s}))
+                .collect::<Vec<_>>(),
         }))?;
     } else {
         ctx.say(format!(
@@ -107,4 +142,37 @@ pub fn run(ctx: &Ctx, args: &DetectArgs) -> anyhow::Result<u8> {
         ));
     }
     Ok(exit::OK)
+}
+
+/// Merges one sheet's detections into its label document as proposals and
+/// saves it; when a person saved the sheet meanwhile, merges again into their
+/// revision (a few times at most) rather than overwrite it.
+fn propose(
+    store: &LabelStore,
+    sheet: &str,
+    model: &str,
+    detections: &[Detection],
+) -> anyhow::Result<MergeSummary> {
+    let who = current_user();
+    let mut last = None;
+    for _ in 0..5 {
+        let doc = store.load(sheet)?;
+        let (merged, summary) = merge_proposals(
+            &doc,
+            model,
+            detections,
+            &MergeOptions::default(),
+            &who,
+            &now_rfc3339(),
+        )?;
+        if summary.added == 0 && summary.replaced == 0 {
+            return Ok(summary);
+        }
+        match store.save(&merged, &who) {
+            Ok(_) => return Ok(summary),
+            Err(e @ LabelError::StaleRevision { .. }) => last = Some(e),
+            Err(e) => return Err(e.into()),
+        }
+    }
+    Err(last.expect("the loop ran").into())
 }
