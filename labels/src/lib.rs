@@ -12,6 +12,7 @@ pub mod error;
 pub mod geometry;
 pub mod hash;
 pub mod interchange;
+pub mod nightly;
 pub mod plant;
 pub mod proposals;
 pub mod qa;
