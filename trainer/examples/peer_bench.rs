@@ -4,6 +4,8 @@
 //! cargo run --release -p symtrust-trainer --example peer_bench -- train  WINDOW BATCH STEPS
 //! cargo run --release -p symtrust-trainer --example peer_bench -- sweep  WIDTH HEIGHT STRIDE SUBSET
 //! cargo run --release -p symtrust-trainer --example peer_bench -- memory WIDTH HEIGHT STRIDE
+//! cargo run --release -p symtrust-trainer --example peer_bench -- kernels
+//! cargo run --release -p symtrust-trainer --example peer_bench -- plant DPI STRIDE
 //! ```
 //!
 //! Each prints one JSON line. Data are built before the timed code from a fixed
@@ -13,7 +15,12 @@
 //! fully-convolutional score map over the whole sheet and per-window
 //! classification of `SUBSET` windows of the same grid, and extrapolates the
 //! per-window time to the whole grid; `memory` runs one sweep and reports the
-//! process's peak resident memory (VmHWM).
+//! process's peak resident memory (VmHWM); `kernels` prints the measured FP32
+//! peak (FMA chains) and each convolution kernel's GFLOP/s at batch 64;
+//! `plant` sweeps an A1 sheet of the synthetic plant densely and with
+//! blank-paper skipping (threshold from windows centred on its symbols, as
+//! training would choose it) and counts the symbols whose nearest grid window
+//! was skipped.
 
 use candle_core::DType;
 use std::time::Instant;
@@ -68,6 +75,84 @@ fn classifier(window: usize) -> Classifier {
         .expect("default architecture");
     let net = Network::init(&arch, 1, DType::F32).expect("weights");
     Classifier::from_network(net, (0..4).map(|i| format!("c{i}")).collect()).expect("classifier")
+}
+
+fn plant(args: &[String], threads: usize) {
+    use symtrust_labels::synth::{DraftingStyle, Paper, SynthConfig, generate_sheet};
+    use symtrust_trainer::blank::{ink_fraction, threshold_from_positives};
+    let (dpi, stride) = (arg(args, 2), arg(args, 3));
+    let config = SynthConfig {
+        dpi: dpi as f64,
+        ..SynthConfig::new(DraftingStyle::A, 11)
+    };
+    let sheet = generate_sheet(&config, 3, Paper::A1);
+    let (w, h) = (sheet.image.width() as usize, sheet.image.height() as usize);
+    let px = sheet.image.as_raw();
+    let side = 100;
+    let origin = |c: f64, limit: usize| {
+        ((c - side as f64 / 2.0).round().max(0.0) as usize).min(limit - side)
+    };
+    let centred: Vec<Vec<u8>> = sheet
+        .symbols
+        .iter()
+        .map(|s| {
+            let (x, y) = (
+                origin(s.bbox.x + s.bbox.w / 2.0, w),
+                origin(s.bbox.y + s.bbox.h / 2.0, h),
+            );
+            (y..y + side)
+                .flat_map(|yy| px[yy * w + x..yy * w + x + side].iter().copied())
+                .collect()
+        })
+        .collect();
+    let threshold = threshold_from_positives(centred.iter().map(Vec::as_slice));
+    let clf = classifier(side);
+    let dense = ScoreMapOptions {
+        stride,
+        ..ScoreMapOptions::native(&clf)
+    };
+    let t = Instant::now();
+    let full = clf.score_map(px, w, h, &dense).expect("dense score map");
+    let dense_s = t.elapsed().as_secs_f64();
+    let skip = ScoreMapOptions {
+        skip_below_ink: Some(threshold),
+        ..dense
+    };
+    let t = Instant::now();
+    let map = clf.score_map(px, w, h, &skip).expect("skipping score map");
+    let skip_s = t.elapsed().as_secs_f64();
+    // A symbol is lost when the grid window nearest its centre was skipped.
+    let lost = sheet
+        .symbols
+        .iter()
+        .filter(|s| {
+            let c = ((origin(s.bbox.x + s.bbox.w / 2.0, w) as f64 / stride as f64).round()
+                as usize)
+                .min(map.cols - 1);
+            let r = ((origin(s.bbox.y + s.bbox.h / 2.0, h) as f64 / stride as f64).round()
+                as usize)
+                .min(map.rows - 1);
+            let (x, y) = map.window_origin(r, c);
+            let win: Vec<u8> = (y..y + side)
+                .flat_map(|yy| px[yy * w + x..yy * w + x + side].iter().copied())
+                .collect();
+            ink_fraction(&win) < threshold
+        })
+        .count();
+    let changed = full
+        .scores
+        .iter()
+        .zip(&map.scores)
+        .filter(|(a, b)| a != b)
+        .count();
+    println!(
+        "{{\"mode\":\"plant\",\"width\":{w},\"height\":{h},\"dpi\":{dpi},\"stride\":{stride},\"threads\":{threads},\"cells\":{},\"symbols\":{},\"threshold\":{threshold:.5},\"dense_seconds\":{dense_s:.3},\"skip_seconds\":{skip_s:.3},\"skipped\":{},\"skipped_share\":{:.4},\"symbols_lost\":{lost},\"scores_changed\":{changed},\"peak_rss_mib\":{:.1}}}",
+        map.cells(),
+        sheet.symbols.len(),
+        map.skipped,
+        map.skipped as f64 / map.cells() as f64,
+        peak_rss_kib() as f64 / 1024.0
+    );
 }
 
 fn main() {
@@ -178,6 +263,7 @@ fn main() {
             );
         }
         Some("kernels") => kernels(threads),
+        Some("plant") => plant(&args, threads),
         _ => {
             arg(&args, usize::MAX);
         }
@@ -255,7 +341,9 @@ fn fma_peak(threads: usize) -> (f64, &'static str) {
                         })
                     })
                     .collect();
-                hs.into_iter().map(|h| h.join().expect("peak thread")).collect()
+                hs.into_iter()
+                    .map(|h| h.join().expect("peak thread"))
+                    .collect()
             });
             std::hint::black_box(sums);
             // Both variants do ITERS x 10 x 8 FMAs (2 flops each) per thread.

@@ -239,22 +239,44 @@ fn forward_sample<T: Float>(
             }
             for pr in 0..nr / 2 {
                 let o0 = m * oh * ow + (r0 / 2 + pr) * ow;
-                for pc in 0..ow {
-                    let at = 2 * pr * uw + 2 * pc;
-                    let cand = [zm[at], zm[at + 1], zm[at + uw], zm[at + uw + 1]];
-                    let mut best = 0;
-                    for i in 1..4 {
-                        if cand[i] > cand[best] {
-                            best = i;
-                        }
-                    }
-                    let v = cand[best] + b;
-                    out[o0 + pc] = if g.relu && v < T::ZERO { T::ZERO } else { v };
-                    idx[o0 + pc] = best as u8;
+                let top = &zm[2 * pr * uw..][..2 * ow];
+                let bottom = &zm[(2 * pr + 1) * uw..][..2 * ow];
+                let rows = top.chunks_exact(2).zip(bottom.chunks_exact(2));
+                let dst = out[o0..o0 + ow].iter_mut().zip(&mut idx[o0..o0 + ow]);
+                for ((t, u), (o, i)) in rows.zip(dst) {
+                    // First maximum in row-major block order: pairs keep their
+                    // first on ties, and the bottom pair wins only when larger.
+                    let (m01, i01) = if t[1] > t[0] { (t[1], 1) } else { (t[0], 0) };
+                    let (m23, i23) = if u[1] > u[0] { (u[1], 3) } else { (u[0], 2) };
+                    let (best, at) = if m23 > m01 { (m23, i23) } else { (m01, i01) };
+                    let v = best + b;
+                    *o = if g.relu && v < T::ZERO { T::ZERO } else { v };
+                    *i = at;
                 }
             }
         }
     }
+}
+
+/// Sum of a slice in eight interleaved partial sums (vectorisable, and the
+/// same order every time).
+fn sum<T: Float>(v: &[T]) -> T {
+    let mut acc = [T::ZERO; 8];
+    let chunks = v.chunks_exact(8);
+    let tail = chunks.remainder();
+    for c in chunks {
+        for (a, x) in acc.iter_mut().zip(c) {
+            *a += *x;
+        }
+    }
+    let mut total = T::ZERO;
+    for a in acc {
+        total += a;
+    }
+    for x in tail {
+        total += *x;
+    }
+    total
 }
 
 /// The forward pass over the batch: output and pool indices (empty without pooling).
@@ -308,30 +330,36 @@ fn backward_group<T: Float>(
     for s in first..first + count {
         let o = &out[s * per_out..][..per_out];
         let gr = &grad[s * per_out..][..per_out];
-        let live = |i: usize| !g.relu || o[i] > T::ZERO;
         if g.pool {
             dz.fill(T::ZERO);
             let ix = &idx[s * per_out..][..per_out];
             for m in 0..m_out {
                 for pr in 0..oh {
-                    for pc in 0..ow {
-                        let i = (m * oh + pr) * ow + pc;
-                        if live(i) {
-                            let (dy, dxx) = (usize::from(ix[i] / 2), usize::from(ix[i] % 2));
-                            dz[m * p + (2 * pr + dy) * uw + 2 * pc + dxx] = gr[i];
+                    let i0 = (m * oh + pr) * ow;
+                    let top = m * p + 2 * pr * uw;
+                    let cells = o[i0..i0 + ow]
+                        .iter()
+                        .zip(&gr[i0..i0 + ow])
+                        .zip(&ix[i0..i0 + ow]);
+                    for (pc, ((ov, gv), at)) in cells.enumerate() {
+                        if !g.relu || *ov > T::ZERO {
+                            let at = usize::from(*at);
+                            dz[top + (at / 2) * uw + 2 * pc + at % 2] = *gv;
                         }
                     }
                 }
             }
         } else {
-            for (i, d) in dz.iter_mut().enumerate() {
-                *d = if live(i) { gr[i] } else { T::ZERO };
+            for ((d, ov), gv) in dz.iter_mut().zip(o).zip(gr) {
+                *d = if !g.relu || *ov > T::ZERO {
+                    *gv
+                } else {
+                    T::ZERO
+                };
             }
         }
         for m in 0..m_out {
-            for v in &dz[m * p..(m + 1) * p] {
-                db[m] += *v;
-            }
+            db[m] += sum(&dz[m * p..(m + 1) * p]);
         }
         let xs = &x[s * per_in..][..per_in];
         for (r0, nr) in bands(g) {
