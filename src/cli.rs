@@ -73,6 +73,12 @@ pub enum Command {
         after_help = "Example:\n  symtrust compare --site ./north-unit --champion models/20261201T101500-3fa2c1d0 --challenger models/20261202T020000-9b1e77aa --out comparisons/nightly-1202"
     )]
     Compare(cmd::compare::CompareArgs),
+    /// Retrain on newly reviewed labels and promote only a challenger that is not
+    /// worse (exit 0 promoted, 3 rejected, 4 nothing to do).
+    #[command(
+        after_help = "Example (crontab, every night at 01:30):\n  30 1 * * * symtrust nightly --site /srv/north-unit --quiet --log /srv/north-unit/nightly.log"
+    )]
+    Nightly(cmd::nightly::NightlyArgs),
     /// Render an evaluation folder into a report (HTML, Markdown, CSV, sheet
     /// overlays, audit stamp), or re-check a report with --verify (exit code 3
     /// when its inputs changed).
@@ -101,6 +107,7 @@ pub fn dispatch(ctx: &Ctx, command: Command) -> anyhow::Result<u8> {
         Command::Detect(args) => cmd::detect::run(ctx, &args),
         Command::Eval(args) => cmd::eval::run(ctx, &args),
         Command::Compare(args) => cmd::compare::run(ctx, &args),
+        Command::Nightly(args) => cmd::nightly::run(ctx, &args),
         Command::Report(args) => cmd::report::run(ctx, &args),
         Command::Review(args) => cmd::review::run(ctx, &args),
     }

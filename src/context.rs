@@ -2,8 +2,10 @@
 
 use crate::cli::GlobalArgs;
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
-use std::io::IsTerminal;
+use std::fs::File;
+use std::io::{IsTerminal, Write};
 use std::path::PathBuf;
+use std::sync::{Arc, Mutex};
 use symtrust_labels::site::Site;
 
 /// An error in how the command was called (exit code 2).
@@ -32,6 +34,8 @@ pub struct Ctx {
     pub quiet: bool,
     /// Print the result as JSON on standard output.
     pub json: bool,
+    /// A log file that receives every line [`Ctx::say`] prints, even when quiet.
+    pub log: Option<Arc<Mutex<File>>>,
 }
 
 impl Ctx {
@@ -41,7 +45,21 @@ impl Ctx {
             site_dir: global.site.clone().unwrap_or_else(|| PathBuf::from(".")),
             quiet: global.quiet,
             json: global.json,
+            log: None,
         }
+    }
+
+    /// The same context, also appending every message to `path` (created if absent).
+    pub fn with_log(&self, path: &std::path::Path) -> anyhow::Result<Self> {
+        let file = std::fs::OpenOptions::new()
+            .create(true)
+            .append(true)
+            .open(path)
+            .map_err(|e| anyhow::anyhow!("{}: cannot open the log file: {e}", path.display()))?;
+        Ok(Self {
+            log: Some(Arc::new(Mutex::new(file))),
+            ..self.clone()
+        })
     }
 
     /// Opens the site, failing with a clear message when the folder is not one.
@@ -49,10 +67,20 @@ impl Ctx {
         Ok(Site::open(&self.site_dir)?)
     }
 
-    /// Prints a line for people on standard error, unless `--quiet` or `--json`.
+    /// Prints a line for people on standard error, unless `--quiet`.
+    /// Lines also go to the log file, when there is one, with a UTC time stamp.
     pub fn say(&self, line: impl AsRef<str>) {
         if !self.quiet {
             eprintln!("{}", line.as_ref());
+        }
+        if let Some(log) = &self.log
+            && let Ok(mut f) = log.lock()
+        {
+            let now = symtrust_labels::clock::now_rfc3339();
+            for l in line.as_ref().lines() {
+                let _ = writeln!(f, "{now} {l}");
+            }
+            let _ = f.flush();
         }
     }
 

@@ -11,6 +11,8 @@ pub const FAILURE: u8 = 1;
 pub const BAD_INPUT: u8 = 2;
 /// `compare` and `nightly`: the challenger is worse than the champion and was not promoted.
 pub const REJECTED: u8 = 3;
+/// `nightly`: no accepted label changed since the last run, so nothing was trained.
+pub const NOTHING_TO_DO: u8 = 4;
 
 /// The exit code for an error that ended a command.
 pub fn code_for(err: &anyhow::Error) -> u8 {

@@ -187,9 +187,12 @@ fn plain(v: Option<f64>) -> String {
 
 fn summary(r: &ComparisonRecord) -> String {
     let m = &r.ap.map;
+    let sheets = match r.sheets.len() {
+        1 => "1 held-out sheet".to_string(),
+        n => format!("{n} held-out sheets"),
+    };
     let mut s = format!(
-        "On {} held-out sheets the challenger ({}) is {} than the champion ({}): mAP {} -> {} (difference {}, {:.0}% paired interval {} to {}).",
-        r.sheets.len(),
+        "On {sheets} the challenger ({}) is {} than the champion ({}): mAP {} -> {} (difference {}, {:.0}% paired interval {} to {}).",
         r.challenger.label(),
         match r.outcome {
             ComparisonOutcome::Better => "better",
@@ -204,6 +207,9 @@ fn summary(r: &ComparisonRecord) -> String {
         signed(m.difference.lower),
         signed(m.difference.upper),
     );
+    if r.sheets.len() < 2 {
+        s.push_str(" With one sheet the interval is a single point and the verdict rests on that sheet alone; hold out more sheets.");
+    }
     let worse: Vec<String> = r
         .verdict
         .lines

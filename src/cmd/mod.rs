@@ -7,6 +7,7 @@ pub mod detect;
 pub mod eval;
 pub mod init;
 pub mod labels;
+pub mod nightly;
 pub mod report;
 pub mod review;
 pub mod sheets;

@@ -4,10 +4,12 @@ use crate::context::{Ctx, usage};
 use crate::exit;
 use clap::Args;
 use indicatif::ProgressBar;
+use std::path::PathBuf;
+use symtrust_labels::site::Site;
 use symtrust_trainer::card::{ModelInputs, remove_stale_writes, write_model};
 use symtrust_trainer::data::find_library;
 use symtrust_trainer::train::{EpochRow, Flow, TrainObserver};
-use symtrust_trainer::{Architecture, Dataset, TrainOptions, train};
+use symtrust_trainer::{Architecture, Dataset, ModelCard, TrainOptions, train};
 
 /// Arguments of `symtrust train`.
 #[derive(Debug, Args)]
@@ -97,6 +99,47 @@ impl TrainObserver for Progress<'_> {
 /// Trains and writes the model folder.
 pub fn run(ctx: &Ctx, args: &TrainArgs) -> anyhow::Result<u8> {
     let site = ctx.open_site()?;
+    let (card, dir) = train_model(ctx, &site, args)?;
+    if ctx.json {
+        ctx.print_json(&card)?;
+    } else {
+        ctx.say(format!(
+            "model {} written to {} (best epoch {} of {}, validation accuracy {:.4}, macro F1 {:.4}, {:.0} s)",
+            card.id,
+            dir.display(),
+            card.training.best_epoch,
+            card.training.epochs_run,
+            card.validation.accuracy,
+            card.validation.macro_f1,
+            card.training.seconds
+        ));
+        if ctx.quiet {
+            println!("{}", dir.display());
+        }
+    }
+    Ok(exit::OK)
+}
+
+/// Training arguments with every default, as if `symtrust train` had been
+/// given only `extra`.
+pub fn args_from(extra: &[&str]) -> anyhow::Result<TrainArgs> {
+    #[derive(clap::Parser)]
+    struct Wrapper {
+        #[command(flatten)]
+        args: TrainArgs,
+    }
+    let argv = std::iter::once("train").chain(extra.iter().copied());
+    Ok(<Wrapper as clap::Parser>::try_parse_from(argv)
+        .map_err(|e| crate::context::UsageError(e.to_string()))?
+        .args)
+}
+
+/// Trains as `args` ask and writes the model folder; returns its card and path.
+pub fn train_model(
+    ctx: &Ctx,
+    site: &Site,
+    args: &TrainArgs,
+) -> anyhow::Result<(ModelCard, PathBuf)> {
     let cfg = &site.config;
     let mut model = cfg.model.clone();
     if let Some(c) = &args.conv_channels {
@@ -174,22 +217,5 @@ pub fn run(ctx: &Ctx, args: &TrainArgs) -> anyhow::Result<u8> {
             checkpoint.display()
         )
     })?;
-    if ctx.json {
-        ctx.print_json(&card)?;
-    } else {
-        ctx.say(format!(
-            "model {} written to {} (best epoch {} of {}, validation accuracy {:.4}, macro F1 {:.4}, {:.0} s)",
-            card.id,
-            dir.display(),
-            card.training.best_epoch,
-            card.training.epochs_run,
-            card.validation.accuracy,
-            card.validation.macro_f1,
-            card.training.seconds
-        ));
-        if ctx.quiet {
-            println!("{}", dir.display());
-        }
-    }
-    Ok(exit::OK)
+    Ok((card, dir))
 }
