@@ -1,5 +1,5 @@
-//! The HTTP server: a few worker threads over `tiny_http`, one page and a small
-//! JSON API.
+//! The HTTP server (axum on a small tokio runtime of its own): one page and a
+//! small JSON API.
 //!
 //! | request | answer |
 //! |---|---|
@@ -24,10 +24,9 @@ use crate::security::{
     sheet_id_from_segment, tokens_equal,
 };
 use crate::summary::all_progress;
+use axum::http::Method;
 use serde_json::json;
-use std::io::{Cursor, Read};
 use std::net::{IpAddr, SocketAddr};
-use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::{Arc, Mutex, OnceLock};
 use std::thread::JoinHandle;
 use symtrust_labels::LabelError;
@@ -36,12 +35,11 @@ use symtrust_labels::document::{LabelDocument, SheetRecord};
 use symtrust_labels::sheets::load_sheet;
 use symtrust_labels::site::Site;
 use symtrust_labels::store::LabelStore;
-use tiny_http::{Header, Method, Request, Response};
 
 /// Largest request body accepted (a label document of some 20,000 symbols).
 pub const MAX_BODY_BYTES: usize = 8 * 1024 * 1024;
 
-/// Worker threads answering requests (tiles load in parallel).
+/// Threads of the async runtime (saving and tiles run on its blocking pool).
 const WORKERS: usize = 6;
 
 /// Sheets whose pyramids are kept in memory.
@@ -79,16 +77,15 @@ struct State {
 
 /// A running review server; stops on [`ReviewServer::stop`].
 pub struct ReviewServer {
-    server: Arc<tiny_http::Server>,
-    workers: Vec<JoinHandle<()>>,
-    stopping: Arc<AtomicBool>,
+    thread: JoinHandle<()>,
+    stop: tokio::sync::oneshot::Sender<()>,
     addr: SocketAddr,
     bind: IpAddr,
     token: String,
 }
 
 impl ReviewServer {
-    /// Opens the socket and starts the workers.
+    /// Opens the socket and starts serving on a thread of its own.
     pub fn start(site: Site, settings: ReviewSettings) -> Result<Self> {
         let token = match &settings.token {
             Some(t) => {
@@ -104,17 +101,13 @@ impl ReviewServer {
             }
         };
         let want = SocketAddr::new(settings.bind, settings.port);
-        let server = tiny_http::Server::http(want).map_err(|e| ReviewError::Listen {
+        let listen_err = |e: std::io::Error| ReviewError::Listen {
             addr: want.to_string(),
             message: e.to_string(),
-        })?;
-        let addr = server
-            .server_addr()
-            .to_ip()
-            .ok_or_else(|| ReviewError::Listen {
-                addr: want.to_string(),
-                message: "not an IP socket".to_string(),
-            })?;
+        };
+        let listener = std::net::TcpListener::bind(want).map_err(listen_err)?;
+        listener.set_nonblocking(true).map_err(listen_err)?;
+        let addr = listener.local_addr().map_err(listen_err)?;
         let state = Arc::new(State {
             store: LabelStore::new(&site),
             classes: site.config.class_names(),
@@ -124,26 +117,32 @@ impl ReviewServer {
             user: settings.user,
             pyramids: Mutex::new(Vec::new()),
         });
-        let server = Arc::new(server);
-        let stopping = Arc::new(AtomicBool::new(false));
-        let workers = (0..WORKERS)
-            .map(|_| {
-                let server = Arc::clone(&server);
-                let state = Arc::clone(&state);
-                let stopping = Arc::clone(&stopping);
-                std::thread::spawn(move || {
-                    while !stopping.load(Ordering::SeqCst) {
-                        if let Ok(rq) = server.recv() {
-                            handle(&state, rq);
-                        }
-                    }
-                })
-            })
-            .collect();
+        let runtime = tokio::runtime::Builder::new_multi_thread()
+            .worker_threads(WORKERS)
+            .enable_io()
+            .build()
+            .map_err(listen_err)?;
+        let listener = {
+            let _guard = runtime.enter();
+            tokio::net::TcpListener::from_std(listener).map_err(listen_err)?
+        };
+        let (stop, stopped) = tokio::sync::oneshot::channel::<()>();
+        let app = axum::Router::new().fallback(move |rq: axum::extract::Request| {
+            let state = Arc::clone(&state);
+            async move { serve(state, rq).await }
+        });
+        let thread = std::thread::spawn(move || {
+            runtime.block_on(async move {
+                let _ = axum::serve(listener, app)
+                    .with_graceful_shutdown(async move {
+                        let _ = stopped.await;
+                    })
+                    .await;
+            });
+        });
         Ok(Self {
-            server,
-            workers,
-            stopping,
+            thread,
+            stop,
             addr,
             bind: settings.bind,
             token,
@@ -172,37 +171,97 @@ impl ReviewServer {
 
     /// Blocks until the server stops (it runs until the process ends).
     pub fn wait(self) {
-        for w in self.workers {
-            let _ = w.join();
-        }
+        let _ = self.thread.join();
     }
 
-    /// Stops the workers and closes the socket.
+    /// Stops serving (requests in progress finish) and closes the socket.
     pub fn stop(self) {
-        self.stopping.store(true, Ordering::SeqCst);
-        for _ in 0..self.workers.len() {
-            self.server.unblock();
-        }
-        for w in self.workers {
-            let _ = w.join();
-        }
+        let _ = self.stop.send(());
+        let _ = self.thread.join();
     }
 }
 
-type Reply = Response<Cursor<Vec<u8>>>;
+/// A request as the routes see it: everything read, the body within the limit.
+struct Incoming {
+    method: Method,
+    path_and_query: String,
+    headers: Vec<(String, String)>,
+    /// The body, or `None` when it was over [`MAX_BODY_BYTES`].
+    body: Option<Vec<u8>>,
+}
 
-fn header(name: &str, value: &str) -> Header {
-    Header::from_bytes(name.as_bytes(), value.as_bytes()).expect("static header is valid")
+/// A response as the routes make it.
+struct Reply {
+    status: u16,
+    headers: Vec<(&'static str, String)>,
+    body: Vec<u8>,
+}
+
+impl Reply {
+    fn with_header(mut self, name: &'static str, value: &str) -> Self {
+        self.headers.push((name, value.to_string()));
+        self
+    }
+}
+
+async fn serve(state: Arc<State>, rq: axum::extract::Request) -> axum::response::Response {
+    let (parts, body) = rq.into_parts();
+    let announced_too_big = parts
+        .headers
+        .get("content-length")
+        .and_then(|v| v.to_str().ok())
+        .and_then(|v| v.parse::<u64>().ok())
+        .is_some_and(|n| n > MAX_BODY_BYTES as u64);
+    let body = if announced_too_big {
+        None
+    } else {
+        axum::body::to_bytes(body, MAX_BODY_BYTES)
+            .await
+            .ok()
+            .map(|b| b.to_vec())
+    };
+    let incoming = Incoming {
+        method: parts.method.clone(),
+        path_and_query: parts
+            .uri
+            .path_and_query()
+            .map_or_else(|| parts.uri.path().to_string(), |p| p.as_str().to_string()),
+        headers: parts
+            .headers
+            .iter()
+            .filter_map(|(n, v)| Some((n.as_str().to_string(), v.to_str().ok()?.to_string())))
+            .collect(),
+        body,
+    };
+    // Saving takes a file lock and fsyncs; decoding a sheet takes a while: both
+    // run off the async workers.
+    let reply = tokio::task::spawn_blocking(move || route(&state, &incoming))
+        .await
+        .unwrap_or_else(|e| error_reply(500, format!("internal error: {e}")));
+    let mut response = axum::response::Response::new(axum::body::Body::from(reply.body));
+    *response.status_mut() = axum::http::StatusCode::from_u16(reply.status)
+        .unwrap_or(axum::http::StatusCode::INTERNAL_SERVER_ERROR);
+    let h = response.headers_mut();
+    for (name, value) in reply.headers {
+        if let Ok(v) = axum::http::HeaderValue::from_str(&value) {
+            h.append(name, v);
+        }
+    }
+    response
 }
 
 fn reply(status: u16, content_type: &str, body: Vec<u8>) -> Reply {
-    Response::from_data(body)
-        .with_status_code(status)
-        .with_header(header("Content-Type", content_type))
-        .with_header(header("Cache-Control", "no-store"))
-        .with_header(header("X-Content-Type-Options", "nosniff"))
-        .with_header(header("Referrer-Policy", "no-referrer"))
-        .with_header(header("X-Frame-Options", "DENY"))
+    Reply {
+        status,
+        headers: vec![
+            ("content-type", content_type.to_string()),
+            ("cache-control", "no-store".to_string()),
+            ("x-content-type-options", "nosniff".to_string()),
+            ("referrer-policy", "no-referrer".to_string()),
+            ("x-frame-options", "DENY".to_string()),
+        ],
+        body,
+    }
 }
 
 fn json_reply(status: u16, value: &serde_json::Value) -> Reply {
@@ -217,19 +276,14 @@ fn error_reply(status: u16, message: impl Into<String>) -> Reply {
     json_reply(status, &json!({ "error": message.into() }))
 }
 
-fn header_value<'a>(rq: &'a Request, name: &str) -> Option<&'a str> {
-    rq.headers()
+fn header_value<'a>(rq: &'a Incoming, name: &str) -> Option<&'a str> {
+    rq.headers
         .iter()
-        .find(|h| h.field.as_str().as_str().eq_ignore_ascii_case(name))
-        .map(|h| h.value.as_str())
+        .find(|(n, _)| n.eq_ignore_ascii_case(name))
+        .map(|(_, v)| v.as_str())
 }
 
-fn handle(state: &State, mut rq: Request) {
-    let response = route(state, &mut rq);
-    let _ = rq.respond(response);
-}
-
-fn route(state: &State, rq: &mut Request) -> Reply {
+fn route(state: &State, rq: &Incoming) -> Reply {
     let host = header_value(rq, "Host").map(str::to_string);
     if !host_allowed(host.as_deref(), &state.hosts) {
         return error_reply(
@@ -241,12 +295,12 @@ fn route(state: &State, rq: &mut Request) -> Reply {
         );
     }
     let host = host.unwrap_or_default();
-    let url = rq.url().to_string();
+    let url = rq.path_and_query.clone();
     let (path, query) = url.split_once('?').unwrap_or((url.as_str(), ""));
     let segments: Vec<&str> = path.trim_start_matches('/').split('/').collect();
-    let method = rq.method().clone();
+    let method = rq.method.clone();
     if segments == [""] {
-        if method != Method::Get {
+        if method != Method::GET {
             return error_reply(405, "only GET is allowed here");
         }
         let given = query
@@ -266,12 +320,12 @@ fn route(state: &State, rq: &mut Request) -> Reply {
             "text/html; charset=utf-8",
             PAGE_HTML.as_bytes().to_vec(),
         )
-        .with_header(header(
-            "Content-Security-Policy",
+        .with_header(
+            "content-security-policy",
             "default-src 'none'; script-src 'unsafe-inline'; style-src 'unsafe-inline'; \
                  img-src 'self' blob: data:; connect-src 'self'; base-uri 'none'; \
                  form-action 'none'; frame-ancestors 'none'",
-        ));
+        );
     }
     if segments[0] != "api" {
         return error_reply(404, format!("no such page {path:?}"));
@@ -282,8 +336,8 @@ fn route(state: &State, rq: &mut Request) -> Reply {
             format!("missing or wrong {TOKEN_HEADER}; reload the page from the printed address"),
         );
     }
-    match (&method, &segments[1..]) {
-        (Method::Get, ["session"]) => json_reply(
+    match (method.as_str(), &segments[1..]) {
+        ("GET", ["session"]) => json_reply(
             200,
             &json!({
                 "site": state.site.config.name,
@@ -294,7 +348,7 @@ fn route(state: &State, rq: &mut Request) -> Reply {
                 "max_body_bytes": MAX_BODY_BYTES,
             }),
         ),
-        (Method::Get, ["sheets"]) => match all_progress(&state.store) {
+        ("GET", ["sheets"]) => match all_progress(&state.store) {
             Ok(list) => json_reply(200, &json!({ "sheets": list })),
             Err(e) => error_reply(500, e.to_string()),
         },
@@ -308,8 +362,8 @@ fn route(state: &State, rq: &mut Request) -> Reply {
             if !state.store.exists(&id) {
                 return error_reply(404, format!("no sheet {id:?} in this site"));
             }
-            match (&method, rest) {
-                (Method::Get, []) => match state.store.load(&id) {
+            match (method.as_str(), rest) {
+                ("GET", []) => match state.store.load(&id) {
                     Ok(doc) => {
                         warm_pyramid(state, &doc);
                         json_reply(
@@ -319,7 +373,7 @@ fn route(state: &State, rq: &mut Request) -> Reply {
                     }
                     Err(e) => error_reply(500, e.to_string()),
                 },
-                (Method::Put, []) => {
+                ("PUT", []) => {
                     if !same_origin(
                         header_value(rq, "Origin"),
                         header_value(rq, "Sec-Fetch-Site"),
@@ -329,11 +383,11 @@ fn route(state: &State, rq: &mut Request) -> Reply {
                     }
                     save(state, &id, rq)
                 }
-                (Method::Get, ["tiles"]) => match pyramid(state, &id) {
+                ("GET", ["tiles"]) => match pyramid(state, &id) {
                     Ok(p) => json_reply(200, &serde_json::to_value(p.info()).expect("serialises")),
                     Err(e) => error_reply(500, e),
                 },
-                (Method::Get, ["tiles", l, c, r]) => {
+                ("GET", ["tiles", l, c, r]) => {
                     let (Ok(l), Ok(c), Ok(r)) = (l.parse::<usize>(), c.parse(), r.parse()) else {
                         return error_reply(400, "tile address is /tiles/LEVEL/COL/ROW in numbers");
                     };
@@ -345,34 +399,22 @@ fn route(state: &State, rq: &mut Request) -> Reply {
                         Err(e) => error_reply(500, e),
                     }
                 }
-                (Method::Get | Method::Put, _) => error_reply(404, "no such resource"),
+                ("GET" | "PUT", _) => error_reply(404, "no such resource"),
                 _ => error_reply(405, "method not allowed"),
             }
         }
-        (Method::Get, _) => error_reply(404, "no such resource"),
+        ("GET", _) => error_reply(404, "no such resource"),
         _ => error_reply(405, "method not allowed"),
     }
 }
 
-fn read_body(rq: &mut Request) -> std::result::Result<Vec<u8>, Reply> {
-    let too_big = || {
+fn read_body(rq: &Incoming) -> std::result::Result<&[u8], Reply> {
+    rq.body.as_deref().ok_or_else(|| {
         error_reply(
             413,
             format!("request body over the limit of {MAX_BODY_BYTES} bytes"),
         )
-    };
-    if rq.body_length().is_some_and(|n| n > MAX_BODY_BYTES) {
-        return Err(too_big());
-    }
-    let mut body = Vec::new();
-    rq.as_reader()
-        .take(MAX_BODY_BYTES as u64 + 1)
-        .read_to_end(&mut body)
-        .map_err(|e| error_reply(400, format!("reading the request body: {e}")))?;
-    if body.len() > MAX_BODY_BYTES {
-        return Err(too_big());
-    }
-    Ok(body)
+    })
 }
 
 fn conflict(revision: u64, sent: u64, changed_by: &str, changed_at: &str) -> Reply {
@@ -387,12 +429,12 @@ fn conflict(revision: u64, sent: u64, changed_by: &str, changed_at: &str) -> Rep
     )
 }
 
-fn save(state: &State, id: &str, rq: &mut Request) -> Reply {
+fn save(state: &State, id: &str, rq: &Incoming) -> Reply {
     let body = match read_body(rq) {
         Ok(b) => b,
         Err(r) => return r,
     };
-    let incoming: LabelDocument = match serde_json::from_slice(&body) {
+    let incoming: LabelDocument = match serde_json::from_slice(body) {
         Ok(d) => d,
         Err(e) => return error_reply(400, format!("the document sent is not valid: {e}")),
     };

@@ -20,7 +20,7 @@ use symtrust_labels::synth::{self, DraftingStyle, Paper, SynthConfig};
 /// Model id of the fixture's proposals.
 pub const MODEL: &str = "fixture-model";
 
-/// A site with one A4 sheet of the synthetic plant at 100 dpi (1169 x 827 px):
+/// A site with one A3 sheet of the synthetic plant at 100 dpi (1654 x 1169 px):
 /// its first two generator symbols accepted by hand, the next `proposals` symbols
 /// proposed by [`MODEL`] with scores falling from 0.95, the rest unlabelled.
 pub fn fixture_site(root: &Path, proposals: usize) -> (Site, String) {
@@ -38,7 +38,7 @@ pub fn fixture_site(root: &Path, proposals: usize) -> (Site, String) {
     let mut config = SiteConfig::new("Quillmoor test unit", classes);
     config.dpi = sc.dpi;
     let site = Site::create(root, config).unwrap();
-    let sheet = synth::generate_sheet(&sc, 0, Paper::A4);
+    let sheet = synth::generate_sheet(&sc, 0, Paper::A3);
     let path = site.sheets_dir().join(format!("{}.png", sheet.id));
     write_atomic(&path, &encode_png_with_dpi(&sheet.image, sc.dpi).unwrap()).unwrap();
     register_sheet(&site, &path).unwrap();
