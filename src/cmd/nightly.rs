@@ -140,7 +140,9 @@ fn class_aps(r: &EvaluationRecord) -> Vec<ApPair> {
 }
 
 /// Finishes the bookkeeping of a decided run: promotion, history, labels seen.
-fn finish(ctx: &Ctx, site: &Site, dir: &Path, d: &Decision) -> anyhow::Result<()> {
+/// `own` is false when finishing an earlier, interrupted run (the abort hook
+/// then stays quiet, so a test kills only the run it means to).
+fn finish(ctx: &Ctx, site: &Site, dir: &Path, d: &Decision, own: bool) -> anyhow::Result<()> {
     if d.promote {
         let current = read_champion(site)?.map(|c| c.model);
         if current.as_deref() != Some(d.challenger.as_str()) {
@@ -162,7 +164,9 @@ fn finish(ctx: &Ctx, site: &Site, dir: &Path, d: &Decision) -> anyhow::Result<()
             }
         }
     }
-    checkpoint("promoted");
+    if own {
+        checkpoint("promoted");
+    }
     let classes = site.config.class_names();
     let cell = |p: &ApPair| ApCell {
         ap: p.ap,
@@ -193,7 +197,9 @@ fn finish(ctx: &Ctx, site: &Site, dir: &Path, d: &Decision) -> anyhow::Result<()
                 .collect(),
         },
     )?;
-    checkpoint("recorded");
+    if own {
+        checkpoint("recorded");
+    }
     write_seen(&nightly_dir(site).join("labels-seen.json"), &d.labels_seen)?;
     write_atomic(&dir.join(DONE_FILE), now_rfc3339().as_bytes())?;
     Ok(())
@@ -225,7 +231,7 @@ fn recover(ctx: &Ctx, site: &Site) -> anyhow::Result<()> {
                 d.run,
                 if d.promote { "promote" } else { "reject" }
             ));
-            finish(ctx, site, &dir, &d)?;
+            finish(ctx, site, &dir, &d, false)?;
         } else {
             ctx.say(format!(
                 "run {} was interrupted before it decided; its files stay under {} and nothing was switched",
@@ -306,7 +312,10 @@ pub fn run(ctx: &Ctx, args: &NightlyArgs) -> anyhow::Result<u8> {
     let site = ctx.open_site()?;
     let run = run_id();
     let host = crate::cmd::eval::host_name();
-    let lock = match acquire(&nightly_dir(&site).join("lock"), &note_now(&run, &host))? {
+    // A held lock is a failure to run (exit 1), not bad input.
+    let acquired = acquire(&nightly_dir(&site).join("lock"), &note_now(&run, &host))
+        .map_err(|e| anyhow::anyhow!("{e}"))?;
+    let lock = match acquired {
         Acquired::Clean(l) => l,
         Acquired::AfterCrash(l, note) => {
             ctx.say(format!(
@@ -478,7 +487,7 @@ pub fn run(ctx: &Ctx, args: &NightlyArgs) -> anyhow::Result<u8> {
     bytes.push(b'\n');
     write_atomic(&dir.join(DECISION_FILE), &bytes)?;
     checkpoint("decided");
-    finish(ctx, &site, &dir, &decision)?;
+    finish(ctx, &site, &dir, &decision, true)?;
     lock.release()?;
 
     let line = if promote {
