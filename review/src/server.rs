@@ -7,7 +7,7 @@
 //! | `GET /api/session` | site name, user, classes |
 //! | `GET /api/sheets` | every sheet's progress |
 //! | `GET /api/sheets/ID` | the label document |
-//! | `PUT /api/sheets/ID` | save the document sent (revision checked); the saved one, or 409 |
+//! | `PUT /api/sheets/ID` | save the document sent (revision checked); the new revision, or 409 |
 //! | `GET /api/sheets/ID/tiles` | pyramid sizes |
 //! | `GET /api/sheets/ID/tiles/L/C/R` | one PNG tile |
 //!
@@ -472,7 +472,11 @@ fn save(state: &State, id: &str, rq: &Incoming) -> Reply {
     match state.store.save(&doc, &state.user) {
         Ok(saved) => json_reply(
             200,
-            &serde_json::to_value(&saved).expect("documents serialise"),
+            &json!({
+                "revision": saved.revision,
+                "changed_by": saved.changed_by,
+                "changed_at": saved.changed_at,
+            }),
         ),
         Err(LabelError::StaleRevision {
             expected,

@@ -226,10 +226,10 @@ fn save_round_trip_and_conflict() {
         &serde_json::to_vec(&edit).unwrap(),
     );
     assert_eq!(r.status, 200, "{}", String::from_utf8_lossy(&r.body));
-    let saved: LabelDocument = serde_json::from_value(r.json()).unwrap();
-    assert_eq!(saved.revision, 3);
+    assert_eq!(r.json()["revision"], 3);
     let disk = store.load(&id).unwrap();
-    assert_eq!(disk, saved);
+    assert_eq!(disk.revision, 3);
+    assert_eq!(r.json()["changed_at"], disk.changed_at.as_str());
     assert_eq!(disk.changed_by, "reviewer-1");
     let outcomes: Vec<Outcome> = props.iter().map(|&i| outcome(&disk.symbols[i])).collect();
     assert_eq!(
