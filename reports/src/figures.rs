@@ -98,7 +98,7 @@ pub fn pr_curves(r: &EvaluationRecord) -> Result<Figure> {
     let (svg, png, placed) = render("pr-curves", &plot)?;
     let caption = match e.operating_threshold {
         Some(t) => format!(
-            "Each line is precision against recall as the score threshold is lowered, one panel per class. The ringed dot is the operating point: detections scored at least {t:.3}, the same threshold for every class, giving the precision and recall in the per-class table. {}",
+            "Each line is precision against recall as the score threshold is lowered, one panel per class. The black ringed dot is the operating point: detections scored at least {t:.3}, the same threshold for every class, giving the precision and recall in the per-class table. {}",
             level_text(r)
         ),
         None => "Each line is precision against recall as the score threshold is lowered, one panel per class. No operating point is marked: the operating rule cannot be met on these sheets.".into(),

@@ -81,6 +81,7 @@ impl Plot for LinesPlot {
             let mut chart = ChartBuilder::on(area)
                 .caption(&panel.title, font(15.0, s))
                 .margin(sz(10.0, s))
+                .margin_right(sz(26.0, s))
                 .x_label_area_size(sz(48.0, s))
                 .y_label_area_size(sz(72.0, s))
                 .build_cartesian_2d(x0..x1, y0..y1)

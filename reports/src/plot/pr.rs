@@ -3,7 +3,7 @@
 //! several evaluations overlaid in one panel.
 
 use super::{Placed, Plot, draw_mark, draw_path, font, mesh_style, pct_label, pe, sz};
-use crate::palette::{BAND, INK, MISS, series_style};
+use crate::palette::{BAND, INK, series_style};
 use plotters::coord::Shift;
 use plotters::prelude::*;
 use serde::Serialize;
@@ -99,6 +99,7 @@ fn draw_panel<DB: DrawingBackend>(
     let mut chart = ChartBuilder::on(area)
         .caption(&panel.title, font(15.0, s))
         .margin(sz(8.0, s))
+        .margin_right(sz(26.0, s))
         .x_label_area_size(sz(48.0, s))
         .y_label_area_size(sz(64.0, s))
         .build_cartesian_2d(0f64..1.0001f64, 0f64..1.0001f64)
@@ -175,7 +176,7 @@ fn draw_panel<DB: DrawingBackend>(
         if let Some(op) = series.operating {
             let at = chart.backend_coord(&op);
             let r = sz(6.0, s) as i32;
-            let op_color = if several { color } else { MISS };
+            let op_color = if several { color } else { INK };
             root.draw(&Circle::new(at, r, WHITE.filled())).map_err(pe)?;
             root.draw(&Circle::new(at, r, op_color.stroke_width(sz(3.0, s))))
                 .map_err(pe)?;

@@ -66,6 +66,7 @@ impl Plot for ReliabilityPlot {
         let (grid, ticks, desc) = mesh_style(s);
         let mut chart = ChartBuilder::on(&upper)
             .margin(sz(10.0, s))
+            .margin_right(sz(26.0, s))
             .x_label_area_size(sz(46.0, s))
             .y_label_area_size(sz(68.0, s))
             .build_cartesian_2d(0f64..1.0001f64, 0f64..1.0001f64)
@@ -152,6 +153,7 @@ impl Plot for ReliabilityPlot {
             .max(1);
         let mut bars = ChartBuilder::on(&lower)
             .margin(sz(10.0, s))
+            .margin_right(sz(26.0, s))
             .x_label_area_size(sz(46.0, s))
             .y_label_area_size(sz(68.0, s))
             .build_cartesian_2d(0f64..1.0001f64, 0f64..(max as f64 * 1.1))

@@ -203,18 +203,19 @@ pub fn evaluate(site: &Site, name: &str, d: &Detector) -> EvaluationRecord {
             ignore: doc.ignore.iter().map(|r| r.bbox).collect(),
         });
         let labels_file = format!("labels/{id}.json");
-        stamps.push(SheetStamp {
-            sheet: id.clone(),
-            file: doc.sheet.file.clone(),
-            sheet_sha256: sha256_file(&site.root.join(&doc.sheet.file)).unwrap(),
-            labels_file: labels_file.clone(),
-            labels_sha256: sha256_file(&site.root.join(&labels_file)).unwrap(),
-            labels_revision: doc.revision,
-            width: doc.sheet.width,
-            height: doc.sheet.height,
-            windows: None,
-            windows_skipped: None,
-        });
+        // Built from JSON, so fields the record gains later take their defaults.
+        let stamp: SheetStamp = serde_json::from_value(serde_json::json!({
+            "sheet": id,
+            "file": doc.sheet.file,
+            "sheet_sha256": sha256_file(&site.root.join(&doc.sheet.file)).unwrap(),
+            "labels_file": labels_file,
+            "labels_sha256": sha256_file(&site.root.join(&labels_file)).unwrap(),
+            "labels_revision": doc.revision,
+            "width": doc.sheet.width,
+            "height": doc.sheet.height,
+        }))
+        .unwrap();
+        stamps.push(stamp);
     }
     let cfg = SheetEvalConfig {
         bootstrap: Some(BootstrapConfig {
@@ -315,40 +316,37 @@ pub fn evaluate(site: &Site, name: &str, d: &Detector) -> EvaluationRecord {
         crop_library: "lib-1".into(),
         crop_manifest_sha256: sha256_hex(&manifest),
     };
-    let record = EvaluationRecord {
-        schema_version: METRICS_SCHEMA_VERSION,
-        trust_statement: trust_statement(&e, &detector.label()),
-        caution: CAUTION.into(),
-        stamp: RunStamp {
+    // Built from JSON, so fields the record gains later take their defaults.
+    let record: EvaluationRecord = serde_json::from_value(serde_json::json!({
+        "schema_version": METRICS_SCHEMA_VERSION,
+        "trust_statement": trust_statement(&e, &detector.label()),
+        "caution": CAUTION,
+        "stamp": RunStamp {
             tool_version: "0.1.0".into(),
             created: "2026-12-01T10:30:00Z".into(),
-            command_line: vec![
-                "symtrust".into(),
-                "eval".into(),
-                "--out".into(),
-                format!("evals/{name}"),
-            ],
+            command_line: vec!["symtrust".into(), "eval".into(), "--out".into(), format!("evals/{name}")],
             host: "test-host".into(),
             user: "tester".into(),
             threads: 1,
             seconds: 1.0,
         },
-        detector,
-        classes: names.clone(),
-        held_out: site.config.held_out.clone(),
-        sheets: stamps,
-        detect_settings: None,
-        sheet_level: e,
-        crop_level: Some(CropLevel {
+        "detector": detector,
+        "classes": names,
+        "held_out": site.config.held_out,
+        "sheets": stamps,
+        "detect_settings": null,
+        "sheet_level": e,
+        "crop_level": CropLevel {
             classes: crop_classes,
             evaluation: crop_eval,
             crops,
-        }),
-        calibration_fit,
-        matches,
-        inputs,
-        shard: None,
-    };
+        },
+        "calibration_fit": calibration_fit,
+        "matches": matches,
+        "inputs": inputs,
+        "shard": null,
+    }))
+    .unwrap();
     let dir = site.root.join("evals").join(name);
     std::fs::create_dir_all(&dir).unwrap();
     std::fs::write(
