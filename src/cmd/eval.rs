@@ -9,7 +9,7 @@
 
 use crate::context::{Ctx, UsageError, usage};
 use crate::exit;
-use crate::sweep::{check_model, check_settings, sweep_sheet};
+use crate::sweep::{check_model, check_settings, sweep_sheet, truths_on_blank};
 use anyhow::Context as _;
 use clap::Args;
 use rayon::prelude::*;
@@ -105,6 +105,12 @@ pub struct EvalArgs {
     /// the held-out calibration before and after it.
     #[arg(long)]
     pub calibrate: bool,
+    /// Evaluate only these held-out sheets (default: every sheet on the held-out list).
+    #[arg(long, value_name = "SHEET", num_args = 1.., conflicts_with = "merge")]
+    pub sheets: Vec<String>,
+    /// Also render the report (`symtrust report`) into `<site>/reports/<out folder name>`.
+    #[arg(long)]
+    pub report: bool,
     /// Evaluate only shard K of N of the held-out sheets (merge the shards with --merge).
     #[arg(long, value_name = "K/N", conflicts_with = "merge")]
     pub shard: Option<String>,
@@ -220,6 +226,7 @@ fn read_held_out(site: &Site, ids: &[String]) -> anyhow::Result<Vec<HeldOutSheet
             height: doc.sheet.height,
             windows: None,
             windows_skipped: None,
+            truths_on_blank: None,
         };
         out.push(HeldOutSheet { doc, stamp, truths });
     }
@@ -332,22 +339,33 @@ fn run_model(
     check_model(site, &classifier, dir)?;
     let info = model_info(dir, &classifier)?;
     let bar = ctx.progress(sheets.len() as u64, "sweeping held-out sheets");
-    let results: Vec<anyhow::Result<(Vec<Detection>, u64, Vec<CropDecision>)>> = sheets
+    type SheetResult = (Vec<Detection>, [Option<u64>; 3], Vec<CropDecision>);
+    let results: Vec<anyhow::Result<SheetResult>> = sheets
         .par_iter()
         .map(|s| {
             let img = load_sheet(site, &s.doc.sheet)?;
             let sweep = sweep_sheet(site, &classifier, &s.doc, &img, &settings)?;
+            let on_blank = sweep.skip_below_ink.map(|t| {
+                let boxes: Vec<_> = s.truths.iter().map(|t| t.bbox).collect();
+                truths_on_blank(&img, &boxes, site.config.window, t)
+            });
             let crops = sheet_crops(site, &classifier, &s.doc, &img)?;
             bar.inc(1);
-            Ok((sweep.detections, sweep.windows, crops))
+            Ok((
+                sweep.detections,
+                [Some(sweep.windows), Some(sweep.skipped), on_blank],
+                crops,
+            ))
         })
         .collect();
     bar.finish_and_clear();
     let mut detections = Vec::new();
     let mut decisions = Vec::new();
     for (s, r) in sheets.iter_mut().zip(results) {
-        let (d, w, c) = r?;
-        s.stamp.windows = Some(w);
+        let (d, [w, skipped, on_blank], c) = r?;
+        s.stamp.windows = w;
+        s.stamp.windows_skipped = skipped;
+        s.stamp.truths_on_blank = on_blank;
         detections.push(d);
         decisions.extend(c);
     }
@@ -659,7 +677,48 @@ pub fn run(ctx: &Ctx, args: &EvalArgs) -> anyhow::Result<u8> {
     let site = ctx.open_site()?;
     let record = build_record(ctx, &site, args)?;
     write_folder(&args.out, &record)?;
-    report_result(ctx, args, &record)
+    let code = report_result(ctx, args, &record)?;
+    if args.report {
+        let rendered = render_report(ctx, &site, &args.out, &[], None)?;
+        ctx.say(format!("report: {}", rendered.index_html.display()));
+    }
+    Ok(code)
+}
+
+/// Renders the report of evaluation folder `eval_dir` (with `beside` shown
+/// next to it, each with an optional title) into `out` or the default
+/// `<site>/reports/<folder name>`.
+pub fn render_report(
+    ctx: &Ctx,
+    site: &Site,
+    eval_dir: &Path,
+    beside: &[(PathBuf, Option<String>)],
+    out: Option<(PathBuf, Option<String>)>,
+) -> anyhow::Result<symtrust_reports::RenderedReport> {
+    let (out_dir, title) = match out {
+        Some((d, t)) => (d, t),
+        None => (symtrust_reports::default_out(&site.root, eval_dir), None),
+    };
+    let mut req = symtrust_reports::ReportRequest::new(
+        symtrust_reports::EvaluationInput {
+            dir: eval_dir.to_path_buf(),
+            site_root: site.root.clone(),
+            title,
+        },
+        out_dir,
+    );
+    req.beside = beside
+        .iter()
+        .map(|(d, t)| symtrust_reports::EvaluationInput {
+            dir: d.clone(),
+            site_root: site.root.clone(),
+            title: t.clone(),
+        })
+        .collect();
+    let bar = ctx.progress(0, "report");
+    let rendered = symtrust_reports::render(&req, &|step| bar.set_message(step.to_string()))?;
+    bar.finish_and_clear();
+    Ok(rendered)
 }
 
 /// Evaluation arguments with every default, as if `symtrust eval` had been
@@ -690,9 +749,21 @@ pub fn build_record(ctx: &Ctx, site: &Site, args: &EvalArgs) -> anyhow::Result<E
         return merged(site, args, &config, started);
     }
     let shard = args.shard.as_deref().map(parse_shard).transpose()?;
+    let chosen = if args.sheets.is_empty() {
+        site.config.held_out.clone()
+    } else {
+        for id in &args.sheets {
+            if !site.config.held_out.contains(id) {
+                return usage(format!(
+                    "--sheets {id}: not on the held-out list of site.toml; only held-out sheets are evaluated (a model's figures on its training sheets overstate it)"
+                ));
+            }
+        }
+        args.sheets.clone()
+    };
     let ids = match shard {
-        Some(s) => shard_sheets(&site.config.held_out, s)?,
-        None => site.config.held_out.clone(),
+        Some(s) => shard_sheets(&chosen, s)?,
+        None => chosen,
     };
     let mut sheets = read_held_out(site, &ids)?;
     let (info, settings, detections, crop_level, calibration_items) = if let Some(dir) = &args.model
@@ -811,6 +882,21 @@ fn report_result(ctx: &Ctx, args: &EvalArgs, record: &EvaluationRecord) -> anyho
             "trust_statement": record.trust_statement,
         }))?;
     } else {
+        let windows: u64 = record.sheets.iter().filter_map(|s| s.windows).sum();
+        let skipped: u64 = record.sheets.iter().filter_map(|s| s.windows_skipped).sum();
+        if skipped > 0 {
+            let on_blank: u64 = record.sheets.iter().filter_map(|s| s.truths_on_blank).sum();
+            ctx.say(format!(
+                "blank paper: {skipped} of {windows} windows ({:.0}%) skipped without running the network; {on_blank} of the {} labelled symbols sit on a window that blank{}",
+                100.0 * skipped as f64 / windows.max(1) as f64,
+                record.sheet_level.micro.n_truths,
+                if on_blank > 0 {
+                    " (WARNING: skipping could lose them; retrain so the threshold is set from crops like these)"
+                } else {
+                    ""
+                }
+            ));
+        }
         ctx.say(&record.trust_statement);
         ctx.say(format!("\n{}", record.caution));
         ctx.say(format!("\nwrote {}", args.out.join(METRICS_FILE).display()));
