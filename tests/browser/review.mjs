@@ -100,7 +100,7 @@ const drawn = doc.symbols.filter((s) => s.origin.kind === "manual" && !sym(befor
 check(drawn.length === 1, "one box drawn by hand is on disk");
 check(drawn[0].class === classes[1], `its class is the second site class (${drawn[0].class})`);
 check(drawn[0].state === "accepted" && Math.abs(drawn[0].box.x - 20) < 1 && Math.abs(drawn[0].box.w - 40) < 1, "at the drawn place: " + JSON.stringify(drawn[0].box));
-check(doc.revision === before.revision + 2, "two actions, two saves");
+check(doc.revision > before.revision && doc.revision <= before.revision + 2, "both actions saved (one save each, or one for both when the second came before the first went out)");
 
 // ---- 3. proposals: accept, reject, correct, undo ----------------------------
 await page.keyboard.press("Escape");
