@@ -58,6 +58,10 @@ pub struct SheetSweep {
     pub detections: Vec<Detection>,
     /// Window positions in the score map.
     pub windows: u64,
+    /// Of those, windows on blank paper given background without running the network.
+    pub skipped: u64,
+    /// The blank-paper threshold applied (`None`: every window computed).
+    pub skip_below_ink: Option<f64>,
     /// Detections dropped by the per-sheet cap.
     pub capped: usize,
 }
@@ -119,6 +123,29 @@ pub fn sweep_sheet(
     Ok(SheetSweep {
         detections: found,
         windows: (map.rows * map.cols) as u64,
+        skipped: map.skipped as u64,
+        skip_below_ink: map.skip_below_ink,
         capped,
     })
+}
+
+/// Ground-truth symbols whose centred window is blank enough to be skipped
+/// (ink fraction below `threshold`): each would be missed by skipping alone.
+pub fn truths_on_blank(
+    img: &GrayImage,
+    truths: &[symtrust_labels::BBox],
+    window: u32,
+    threshold: f64,
+) -> u64 {
+    truths
+        .iter()
+        .filter(|b| {
+            let (cx, cy) = b.center();
+            let crop = symtrust_labels::crops::cut_window(
+                img,
+                symtrust_labels::Window::centered_on(cx, cy, window),
+            );
+            symtrust_trainer::blank::ink_fraction(crop.as_raw()) < threshold
+        })
+        .count() as u64
 }

@@ -427,7 +427,12 @@ fn a_model_evaluation_is_complete_and_consistent() {
         m["detector"]["weights_sha256"].as_str().unwrap(),
         symtrust_labels::hash::sha256_hex(&weights)
     );
-    assert!(m["sheets"][0]["windows"].as_u64().unwrap() > 1000);
+    let stamp = &m["sheets"][0];
+    assert!(stamp["windows"].as_u64().unwrap() > 1000);
+    // Blank-paper skipping: most of a sheet is paper, and no labelled symbol
+    // of the held-out sheet sits on a window blank enough to be skipped.
+    assert!(stamp["windows_skipped"].as_u64().unwrap() > 0, "{stamp}");
+    assert_eq!(stamp["truths_on_blank"], 0, "{stamp}");
     // Crop level: one decision per crop, the confusion table counts them all.
     let crops = &m["crop_level"];
     let n_crops = crops["crops"].as_array().unwrap().len() as u64;

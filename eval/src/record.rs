@@ -117,6 +117,11 @@ pub struct SheetStamp {
     pub windows: Option<u64>,
     /// Of those, windows on blank paper given background without running the network.
     pub windows_skipped: Option<u64>,
+    /// Ground-truth symbols whose centred window falls below the blank-paper
+    /// threshold, i.e. that skipping alone could lose (model runs with
+    /// skipping only; 0 is what an evaluation must show).
+    #[serde(default)]
+    pub truths_on_blank: Option<u64>,
 }
 
 /// One crop of the crop-level evaluation and the model's decision on it.
