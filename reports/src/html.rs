@@ -32,7 +32,8 @@ dl.facts dt { font-weight: bold; } dl.facts dd { margin: 0; }
 table { border-collapse: collapse; margin: 8px 0; font-size: 13.5px; }
 th, td { border: 1px solid var(--rule); padding: 4px 8px; text-align: right; vertical-align: top; }
 th { background: #f2f2f2; text-align: center; }
-td:first-child, th:first-child { text-align: left; }
+td:first-child, th:first-child { text-align: left; white-space: nowrap; }
+#audit-inputs td, #audit-inputs th { text-align: left; }
 tr.pooled td { font-weight: bold; background: #fafafa; }
 .wide { overflow-x: auto; }
 figure { margin: 14px 0; break-inside: avoid; page-break-inside: avoid; }
@@ -161,12 +162,33 @@ fn gallery_html(items: &[GalleryItem], total: usize, what: &str) -> String {
     );
     for g in items {
         let cap = gallery_caption(g);
+        let (head, why) = match g.fate {
+            Fate::FalseAlarm => (
+                format!("{} · score {:.3}", g.class, g.score.unwrap_or(0.0)),
+                match (g.kind, &g.truth_class) {
+                    (Some(MatchKind::WrongClass), Some(t)) => format!("on a {t} (wrong class)"),
+                    (Some(MatchKind::Duplicate), _) => "second report of a found symbol".into(),
+                    _ => "on no labelled symbol".into(),
+                },
+            ),
+            _ => (
+                g.class.clone(),
+                match g.score {
+                    Some(sc) => format!("found only at score {sc:.3}, below the threshold"),
+                    None => "no detection at all".into(),
+                },
+            ),
+        };
         let _ = write!(
             s,
-            "<figure><img src=\"{}\" alt=\"{}\"><figcaption>{}</figcaption></figure>",
+            "<figure><img src=\"{}\" alt=\"{}\"><figcaption><strong>{}</strong><br>{}<br>{} at ({:.0}, {:.0})</figcaption></figure>",
             png_data_uri(&g.png),
             esc(&cap),
-            esc(&cap)
+            esc(&head),
+            esc(&why),
+            esc(&g.sheet),
+            g.bbox.x,
+            g.bbox.y
         );
     }
     s.push_str("</div>");
@@ -412,15 +434,15 @@ pub fn page(r: &Report) -> String {
     for p in &r.sheets {
         let _ = write!(
             s,
-            "<figure class=\"sheet\" id=\"sheet-{0}\"><a href=\"{1}\"><img src=\"{2}\" alt=\"sheet {0} with hits, false alarms and misses marked\"></a><figcaption><strong>{0}</strong> ({3} x {4} px): {5} hits, {6} false alarms, {7} missed symbols. <a href=\"{1}\">Full resolution</a>.</figcaption></figure>",
+            "<figure class=\"sheet\" id=\"sheet-{0}\"><a href=\"{1}\"><img src=\"{2}\" alt=\"sheet {0} with hits, false alarms and misses marked\"></a><figcaption><strong>{0}</strong> ({3} x {4} px): {5}, {6}, {7}. <a href=\"{1}\">Full resolution</a>.</figcaption></figure>",
             esc(&p.sheet),
             esc(&p.full_path),
             png_data_uri(&p.overview_png),
             p.size.0,
             p.size.1,
-            p.counts.0,
-            p.counts.1,
-            p.counts.2
+            crate::text::count(p.counts.0, "hit", "hits"),
+            crate::text::count(p.counts.1, "false alarm", "false alarms"),
+            crate::text::count(p.counts.2, "missed symbol", "missed symbols")
         );
     }
     s.push_str("</section>");

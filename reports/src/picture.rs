@@ -231,7 +231,7 @@ fn with_legend(img: RgbImage, t: i64) -> Result<RgbImage, String> {
         let mut x = (10.0 * s) as i32;
         for fate in fates {
             starts.push(x);
-            let text_x = x + (38.0 * s) as i32;
+            let text_x = x + (46.0 * s) as i32;
             root.draw(&Text::new(
                 fate.legend(),
                 (text_x, (13.0 * s) as i32),

@@ -210,3 +210,8 @@ pub fn command_line(args: &[String]) -> String {
         .collect::<Vec<_>>()
         .join(" ")
 }
+
+/// `n` and the noun, singular or plural: "1 hit", "3 hits".
+pub fn count(n: usize, one: &str, many: &str) -> String {
+    format!("{n} {}", if n == 1 { one } else { many })
+}

@@ -36,7 +36,7 @@ pub struct BarsPlot {
 
 impl Plot for BarsPlot {
     fn size(&self) -> (u32, u32) {
-        (780, 120 + 30 * self.bars.len().max(1) as u32)
+        (780, 140 + 30 * self.bars.len().max(1) as u32)
     }
 
     fn draw<DB: DrawingBackend>(
@@ -56,6 +56,7 @@ impl Plot for BarsPlot {
         let (grid, ticks, desc) = mesh_style(s);
         let mut chart = ChartBuilder::on(root)
             .margin(sz(12.0, s))
+            .margin_top(sz(34.0, s))
             .x_label_area_size(sz(48.0, s))
             .y_label_area_size(sz(longest * 8.0 + 20.0, s))
             .build_cartesian_2d(0f64..max * 1.5, 0f64..n)
@@ -132,7 +133,11 @@ impl Plot for BarsPlot {
             .map_err(pe)?;
             let end = chart.backend_coord(&(m + f, n - i as f64 - 0.5));
             root.draw(&Text::new(
-                format!("{} missed, {} false alarms", b.misses, b.false_alarms),
+                format!(
+                    "{} missed, {}",
+                    b.misses,
+                    crate::text::count(b.false_alarms as usize, "false alarm", "false alarms")
+                ),
                 (end.0 + sz(6.0, s) as i32, end.1),
                 font(12.0, s).pos(plotters::style::text_anchor::Pos::new(
                     plotters::style::text_anchor::HPos::Left,
@@ -147,6 +152,42 @@ impl Plot for BarsPlot {
                 px: end.0,
                 py: end.1,
             });
+        }
+        // Key, top right: the two patterns.
+        let (kx, ky) = chart.backend_coord(&(max * 1.5, n));
+        let box_w = sz(16.0, s) as i32;
+        let mut x = kx - sz(250.0, s) as i32;
+        let y = ky - sz(2.0, s) as i32 - box_w;
+        for (label, missed) in [("missed symbols", true), ("false alarms", false)] {
+            let style = if missed {
+                MISS.filled()
+            } else {
+                FALSE_ALARM.mix(0.35).filled()
+            };
+            root.draw(&Rectangle::new([(x, y), (x + box_w, y + box_w)], style))
+                .map_err(pe)?;
+            if !missed {
+                root.draw(&Rectangle::new(
+                    [(x, y), (x + box_w, y + box_w)],
+                    FALSE_ALARM.stroke_width(sz(2.0, s)),
+                ))
+                .map_err(pe)?;
+                root.draw(&PathElement::new(
+                    vec![(x + box_w / 3, y + box_w), (x + 2 * box_w / 3, y)],
+                    FALSE_ALARM.stroke_width(sz(1.0, s)),
+                ))
+                .map_err(pe)?;
+            }
+            root.draw(&Text::new(
+                label.to_string(),
+                (x + box_w + sz(5.0, s) as i32, y + box_w / 2),
+                font(12.0, s).pos(plotters::style::text_anchor::Pos::new(
+                    plotters::style::text_anchor::HPos::Left,
+                    plotters::style::text_anchor::VPos::Center,
+                )),
+            ))
+            .map_err(pe)?;
+            x += sz(130.0, s) as i32;
         }
         Ok(placed)
     }

@@ -157,8 +157,15 @@ impl Plot for HeatmapPlot {
                 root.draw(&Rectangle::new([(x0, y0), (x0 + cell, y0 + cell)], border))
                     .map_err(pe)?;
                 let ink = if share > 0.55 { WHITE } else { INK };
+                // "none" found as "missed" cannot happen: leave that cell blank.
+                let impossible = t.rows[i] == symtrust_eval::confusion::NONE_ROW
+                    && t.columns[j] == symtrust_eval::confusion::MISSED_COLUMN;
                 root.draw(&Text::new(
-                    count.to_string(),
+                    if impossible {
+                        "–".to_string()
+                    } else {
+                        count.to_string()
+                    },
                     (x0 + cell / 2, y0 + cell / 2),
                     (super::FONT, 15.0 * super::EM * s)
                         .into_font()
