@@ -45,6 +45,8 @@ pub enum Role {
     TrainingLog,
     /// A detections file from another system.
     Detections,
+    /// A champion-challenger comparison (`comparison.json`).
+    Comparison,
 }
 
 /// One input file and its hash.

@@ -275,6 +275,7 @@ fn audit_html(r: &Report) -> String {
             Role::CropManifest => "crop library manifest",
             Role::TrainingLog => "training log",
             Role::Detections => "detections file",
+            Role::Comparison => "comparison record",
         };
         let _ = write!(
             s,
@@ -329,6 +330,9 @@ pub fn page(r: &Report) -> String {
     if r.side_by_side.is_some() {
         toc.push(("side-by-side", "Evaluations side by side"));
     }
+    if r.comparison.is_some() {
+        toc.push(("comparison", "Challenger against champion"));
+    }
     toc.extend([
         ("pr", "Precision-recall curves"),
         ("confusion", "Confusion tables"),
@@ -368,6 +372,25 @@ pub fn page(r: &Report) -> String {
             "<section id=\"side-by-side\"><h2>Evaluations side by side</h2><p>Each column is one evaluation on its own held-out sheets; the first is the one this report is about.</p>{}{}</section>",
             table_html(t, false),
             figure_html(f)
+        );
+    }
+    if let Some((c, t, f)) = &r.comparison {
+        let rec = &c.record;
+        let _ = write!(
+            s,
+            "<section id=\"comparison\"><h2>Challenger against champion</h2><p class=\"statement\">{}</p><dl class=\"facts\"><dt>Champion</dt><dd>{}</dd><dt>Challenger</dt><dd>{}</dd><dt>Outcome</dt><dd>{}</dd><dt>Compared</dt><dd>{} by {} on {}</dd></dl>{}{}{}</section>",
+            esc(&rec.summary),
+            esc(&crate::text::detector(&rec.champion)),
+            esc(&crate::text::detector(&rec.challenger)),
+            esc(crate::comparison::outcome(rec.outcome)),
+            esc(&rec.stamp.created),
+            esc(&rec.stamp.user),
+            esc(&rec.stamp.host),
+            table_html(t, true),
+            figure_html(f),
+            crate::comparison::mcnemar_text(rec)
+                .map(|m| format!("<p>{}</p>", esc(&m)))
+                .unwrap_or_default()
         );
     }
     let fig = |id: &str| r.figure(id).map(figure_html);

@@ -17,6 +17,7 @@
 
 pub mod audit;
 pub mod base64;
+pub mod comparison;
 pub mod error;
 pub mod figures;
 pub mod html;
@@ -65,6 +66,9 @@ pub struct ReportRequest {
     pub command_line: Vec<String>,
     /// Most crops per error gallery.
     pub gallery_cap: usize,
+    /// A `symtrust compare` result (its folder or `comparison.json`) to show
+    /// as a section of its own.
+    pub comparison: Option<PathBuf>,
 }
 
 impl ReportRequest {
@@ -76,6 +80,7 @@ impl ReportRequest {
             out,
             command_line: std::env::args().collect(),
             gallery_cap: DEFAULT_GALLERY_CAP,
+            comparison: None,
         }
     }
 }
@@ -98,6 +103,8 @@ pub struct Report {
     pub figures: Vec<Figure>,
     /// The comparison table and PR overlay, when evaluations are side by side.
     pub side_by_side: Option<(Table, Figure)>,
+    /// A champion-challenger comparison: the record, its table and plot.
+    pub comparison: Option<(comparison::LoadedComparison, Table, Figure)>,
     /// Per-class table for people.
     pub per_class: Table,
     /// Per-sheet table for people.
@@ -123,12 +130,18 @@ impl Report {
         &self.evaluations[0]
     }
 
-    /// A figure by id.
-    pub fn figure(&self, id: &str) -> Option<&Figure> {
+    /// Every figure: the main evaluation's, then the side-by-side and
+    /// comparison figures.
+    pub fn all_figures(&self) -> impl Iterator<Item = &Figure> {
         self.figures
             .iter()
             .chain(self.side_by_side.as_ref().map(|s| &s.1))
-            .find(|f| f.id == id)
+            .chain(self.comparison.as_ref().map(|c| &c.2))
+    }
+
+    /// A figure by id.
+    pub fn figure(&self, id: &str) -> Option<&Figure> {
+        self.all_figures().find(|f| f.id == id)
     }
 }
 
@@ -155,8 +168,29 @@ pub fn build(req: &ReportRequest, staging: &Path, on_step: &dyn Fn(&str)) -> Res
     for b in &req.beside {
         evaluations.push(load::load(b)?);
     }
+    let comparison = match &req.comparison {
+        Some(p) => {
+            let c = comparison::load(p)?;
+            let table = comparison::table(&c.record);
+            let fig = comparison::figure(&c.record)?;
+            Some((c, table, fig))
+        }
+        None => None,
+    };
     on_step("checking the sheets and label documents against their recorded hashes");
-    let (sites, inputs) = audit::collect_inputs(&evaluations)?;
+    let (sites, mut inputs) = audit::collect_inputs(&evaluations)?;
+    if let Some((c, _, _)) = &comparison {
+        inputs.push(audit::AuditedFile {
+            role: audit::Role::Comparison,
+            site: None,
+            path: std::path::absolute(&c.path)
+                .unwrap_or_else(|_| c.path.clone())
+                .to_string_lossy()
+                .into_owned(),
+            sha256: c.sha256.clone(),
+            checked_at_render: true,
+        });
+    }
     let main = &evaluations[0];
     let r = &main.record;
     on_step("drawing the figures");
@@ -218,6 +252,9 @@ pub fn build(req: &ReportRequest, staging: &Path, on_step: &dyn Fn(&str)) -> Res
         t.id = "side_by_side".into();
         csv.push(t);
     }
+    if let Some((_, t, _)) = &comparison {
+        csv.push(t.clone());
+    }
     let audit = AuditStamp {
         schema_version: AUDIT_SCHEMA_VERSION,
         tool_version: env!("CARGO_PKG_VERSION").to_string(),
@@ -236,6 +273,7 @@ pub fn build(req: &ReportRequest, staging: &Path, on_step: &dyn Fn(&str)) -> Res
         evaluations,
         figures,
         side_by_side,
+        comparison,
         csv,
         sheets: pictures,
         false_alarms,
@@ -285,9 +323,7 @@ pub fn write_report(report: &mut Report, staging: &Path) -> Result<()> {
         write_file(staging, &format!("tables/{}.csv", t.id), &t.to_csv()?)?;
     }
     let data: Vec<serde_json::Value> = report
-        .figures
-        .iter()
-        .chain(report.side_by_side.as_ref().map(|s| &s.1))
+        .all_figures()
         .map(|f| {
             serde_json::json!({
                 "id": f.id,
@@ -373,12 +409,7 @@ pub fn render(req: &ReportRequest, on_step: &dyn Fn(&str)) -> Result<RenderedRep
         summary_md: out.join(SUMMARY_FILE),
         dir: out,
         trust_statement: report.main().record.trust_statement.clone(),
-        figures: report
-            .figures
-            .iter()
-            .chain(report.side_by_side.as_ref().map(|s| &s.1))
-            .map(|f| f.id.clone())
-            .collect(),
+        figures: report.all_figures().map(|f| f.id.clone()).collect(),
     })
 }
 

@@ -82,6 +82,22 @@ pub fn summary(r: &Report) -> String {
             f.title, f.id, f.title, f.caption
         );
     }
+    if let Some((c, t, _)) = &r.comparison {
+        let _ = writeln!(
+            s,
+            "## Challenger against champion\n\n> {}\n\n- **Champion:** {}\n- **Challenger:** {}\n- **Outcome:** {}\n",
+            c.record.summary,
+            crate::text::detector(&c.record.champion),
+            crate::text::detector(&c.record.challenger),
+            crate::comparison::outcome(c.record.outcome)
+        );
+        s.push_str(&table_md(t));
+        s.push('\n');
+        s.push_str(&figure_md(r, "comparison"));
+        if let Some(m) = crate::comparison::mcnemar_text(&c.record) {
+            let _ = writeln!(s, "{m}\n");
+        }
+    }
     s.push_str("## Precision-recall curves\n\n");
     s.push_str(&figure_md(r, "pr-curves"));
     s.push_str("## Confusion tables\n\n");

@@ -33,13 +33,17 @@ pub struct ReportArgs {
     /// the next ones each `--beside` in order (default: the folder name).
     #[arg(long, value_name = "TEXT")]
     pub title: Vec<String>,
+    /// A `symtrust compare` result (its folder or comparison.json) to add as
+    /// a section: per-class AP differences with their intervals and the verdict.
+    #[arg(long, value_name = "DIR")]
+    pub comparison: Option<PathBuf>,
     /// Most crops in each error gallery.
     #[arg(long, value_name = "N", default_value_t = symtrust_reports::DEFAULT_GALLERY_CAP)]
     pub gallery: usize,
     /// Re-hash the inputs of the report folder DIR (and its own files) and say
     /// whether it still describes them; the site is `--site` when given, else
     /// the one recorded in the report.
-    #[arg(long, value_name = "DIR", conflicts_with_all = ["eval_dir", "out", "beside", "title"])]
+    #[arg(long, value_name = "DIR", conflicts_with_all = ["eval_dir", "out", "beside", "title", "comparison"])]
     pub verify: Option<PathBuf>,
 }
 
@@ -112,6 +116,7 @@ pub fn run(ctx: &Ctx, args: &ReportArgs) -> anyhow::Result<u8> {
     let mut req = ReportRequest::new(evaluation, out);
     req.beside = beside;
     req.gallery_cap = args.gallery;
+    req.comparison = args.comparison.clone();
     let quiet = ctx.quiet || ctx.json;
     let rendered = symtrust_reports::render(&req, &|step| {
         if !quiet {

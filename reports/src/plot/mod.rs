@@ -4,6 +4,7 @@
 //! can hold every mark against `metrics.json`.
 
 pub mod bars;
+pub mod forest;
 pub mod heatmap;
 pub mod lines;
 pub mod pr;
@@ -72,6 +73,8 @@ pub enum Drawn {
     Lines(lines::LinesDrawn),
     /// Horizontal stacked bars (sheets ranked by errors).
     Bars(bars::BarsDrawn),
+    /// AP differences of a comparison with their intervals.
+    Forest(forest::ForestDrawn),
 }
 
 /// One finished figure.
