@@ -62,7 +62,7 @@ code, .mono { font-family: "DejaVu Sans Mono", Menlo, Consolas, monospace; font-
 
 fn table_html(t: &Table, pooled_last: bool) -> String {
     let mut s = format!(
-        "<div class=\"wide\"><table id=\"{}\"><thead><tr>",
+        "<div class=\"wide\"><table id=\"table-{}\"><thead><tr>",
         esc(&t.id)
     );
     for h in &t.header {

@@ -312,11 +312,7 @@ fn files_under(dir: &Path) -> Result<Vec<String>> {
 
 /// Writes the files of a built report into `staging`.
 pub fn write_report(report: &mut Report, staging: &Path) -> Result<()> {
-    for f in report
-        .figures
-        .iter()
-        .chain(report.side_by_side.as_ref().map(|s| &s.1))
-    {
+    for f in report.all_figures() {
         write_file(staging, &format!("figures/{}.png", f.id), &f.png)?;
     }
     for t in &report.csv {

@@ -130,6 +130,7 @@ fn comparison_section_shows_the_record() {
     );
     // And the page has the section, after the per-class table.
     let html = symtrust_reports::html::page(&report);
+    assert_eq!(html.matches("id=\"comparison\"").count(), 1);
     let (a, b) = (
         html.find("id=\"classes\"").unwrap(),
         html.find("id=\"comparison\"").unwrap(),

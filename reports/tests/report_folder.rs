@@ -48,6 +48,11 @@ fn html_names_only_inline_or_existing_relative_resources() {
         assert!(!v.contains(".."), "leaves the report folder: {v}");
         assert!(out.join(v).is_file(), "missing: {v}");
     }
+    let mut ids = attribute_values(&html, "id");
+    let n_ids = ids.len();
+    ids.sort();
+    ids.dedup();
+    assert_eq!(ids.len(), n_ids, "an HTML id is used twice");
     for v in hrefs.iter().filter(|v| v.starts_with('#')) {
         assert!(
             html.contains(&format!("id=\"{}\"", &v[1..])),
