@@ -63,13 +63,38 @@ pub fn ap_step_sum(curve: &PrCurve) -> Option<f64> {
     Some(ap)
 }
 
-/// The precision envelope: entry `n` is the largest precision at points `>= n`.
-fn envelope(curve: &PrCurve) -> Vec<f64> {
-    let mut env: Vec<f64> = curve.points.iter().map(|p| p.precision).collect();
-    for i in (0..env.len().saturating_sub(1)).rev() {
-        env[i] = env[i].max(env[i + 1]);
+/// The precision envelope, written into `env`: entry `n` is the largest
+/// precision at points `>= n`.
+fn envelope_into(curve: &PrCurve, env: &mut Vec<f64>) {
+    env.clear();
+    env.extend(curve.points.iter().map(|p| p.precision));
+    envelope_in_place(env);
+}
+
+/// The area under the envelope `env` of `curve`.
+fn all_point_with(curve: &PrCurve, env: &[f64]) -> f64 {
+    let mut prev_r = 0.0;
+    let mut ap = 0.0;
+    for (p, e) in curve.points.iter().zip(env) {
+        ap += (p.recall - prev_r) * e;
+        prev_r = p.recall;
     }
-    env
+    ap
+}
+
+/// The mean of the envelope `env` of `curve` at the 101 recall levels.
+fn points_101_with(curve: &PrCurve, env: &[f64]) -> f64 {
+    let mut sum = 0.0;
+    let mut idx = 0;
+    for r in recall_levels_101() {
+        while idx < curve.points.len() && curve.points[idx].recall < r {
+            idx += 1;
+        }
+        if idx < curve.points.len() {
+            sum += env[idx];
+        }
+    }
+    sum / 101.0
 }
 
 /// All-point interpolated AP (Pascal VOC 2010 on); `None` when no positives exist.
@@ -77,14 +102,9 @@ pub fn ap_all_point(curve: &PrCurve) -> Option<f64> {
     if curve.n_positives == 0 {
         return None;
     }
-    let env = envelope(curve);
-    let mut prev_r = 0.0;
-    let mut ap = 0.0;
-    for (p, e) in curve.points.iter().zip(&env) {
-        ap += (p.recall - prev_r) * e;
-        prev_r = p.recall;
-    }
-    Some(ap)
+    let mut env = Vec::new();
+    envelope_into(curve, &mut env);
+    Some(all_point_with(curve, &env))
 }
 
 /// The 101 recall levels of COCO, computed as numpy's `linspace(0, 1, 101)` does
@@ -102,18 +122,43 @@ pub fn ap_101(curve: &PrCurve) -> Option<f64> {
     if curve.n_positives == 0 {
         return None;
     }
-    let env = envelope(curve);
+    let mut env = Vec::new();
+    envelope_into(curve, &mut env);
+    Some(points_101_with(curve, &env))
+}
+
+/// Turns the precisions of a curve's points into their envelope, in place
+/// (the loop of [`envelope_into`]).
+pub(crate) fn envelope_in_place(env: &mut [f64]) {
+    for i in (0..env.len().saturating_sub(1)).rev() {
+        env[i] = env[i].max(env[i + 1]);
+    }
+}
+
+/// [`all_point_with`] on the points' recalls and envelope as slices.
+pub(crate) fn all_point_of(recall: &[f64], env: &[f64]) -> f64 {
+    let mut prev_r = 0.0;
+    let mut ap = 0.0;
+    for (r, e) in recall.iter().zip(env) {
+        ap += (r - prev_r) * e;
+        prev_r = *r;
+    }
+    ap
+}
+
+/// [`points_101_with`] on the points' recalls and envelope as slices.
+pub(crate) fn points_101_of(recall: &[f64], env: &[f64]) -> f64 {
     let mut sum = 0.0;
     let mut idx = 0;
     for r in recall_levels_101() {
-        while idx < curve.points.len() && curve.points[idx].recall < r {
+        while idx < recall.len() && recall[idx] < r {
             idx += 1;
         }
-        if idx < curve.points.len() {
+        if idx < recall.len() {
             sum += env[idx];
         }
     }
-    Some(sum / 101.0)
+    sum / 101.0
 }
 
 /// Mean of the defined values; `None` when none is defined.

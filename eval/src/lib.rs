@@ -25,13 +25,16 @@ pub mod match_log;
 pub mod matching;
 pub mod nms;
 pub mod operating;
+mod overlaps;
 pub mod peaks;
 pub mod pr;
+mod ranking;
 pub mod record;
 pub mod roc;
 pub mod sheet_eval;
 pub mod sheets;
 pub mod special;
 pub mod statement;
+mod truth_grid;
 
 pub use error::{EvalError, Result};

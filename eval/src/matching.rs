@@ -16,6 +16,7 @@
 //! is removed, ground truth and detections alike.
 
 use crate::error::{Result, in_range, setting};
+use crate::truth_grid::TruthGrid;
 use serde::{Deserialize, Serialize};
 use symtrust_labels::BBox;
 
@@ -121,7 +122,9 @@ pub fn score_order(dets: &[ScoredBox]) -> Vec<usize> {
     order
 }
 
-/// Same-class greedy matching of one sheet (see the module comment).
+/// Same-class greedy matching of one sheet (see the module comment). Only the
+/// symbols near each detection are looked at ([`crate::truth_grid`]); the
+/// result is that of a scan over all symbols in index order.
 pub fn match_sheet(
     truths: &[ClassedBox],
     dets: &[ScoredBox],
@@ -132,11 +135,15 @@ pub fn match_sheet(
         duplicate: vec![false; dets.len()],
         truth_det: vec![None; truths.len()],
     };
+    let grid = TruthGrid::new(truths, dets.len());
+    let mut cands = Vec::new();
     for d in score_order(dets) {
         let det = &dets[d];
         let mut best: Option<(usize, f64)> = None;
         let mut fits_taken = false;
-        for (t, truth) in truths.iter().enumerate() {
+        grid.candidates(&det.bbox, criterion, &mut cands);
+        for &t in &cands {
+            let (t, truth) = (t as usize, &truths[t as usize]);
             if truth.class != det.class {
                 continue;
             }
@@ -173,12 +180,16 @@ pub fn match_across_classes(
 ) -> Vec<(usize, usize)> {
     let mut taken: Vec<bool> = first_pass.truth_det.iter().map(Option::is_some).collect();
     let mut pairs = Vec::new();
+    let grid = TruthGrid::new(truths, dets.len());
+    let mut cands = Vec::new();
     for d in score_order(dets) {
         if first_pass.det_truth[d].is_some() {
             continue;
         }
         let mut best: Option<(usize, f64)> = None;
-        for (t, truth) in truths.iter().enumerate() {
+        grid.candidates(&dets[d].bbox, criterion, &mut cands);
+        for &t in &cands {
+            let (t, truth) = (t as usize, &truths[t as usize]);
             if taken[t] {
                 continue;
             }
@@ -330,6 +341,94 @@ mod tests {
                         proptest::prop_assert_eq!(a.duplicate[d], !fitting.is_empty());
                     }
                 }
+            }
+        }
+    }
+
+    /// The plain scan over every symbol that the grid must reproduce.
+    fn scan_all(truths: &[ClassedBox], dets: &[ScoredBox], crit: &MatchCriterion) -> Assignment {
+        let mut a = Assignment {
+            det_truth: vec![None; dets.len()],
+            duplicate: vec![false; dets.len()],
+            truth_det: vec![None; truths.len()],
+        };
+        for d in score_order(dets) {
+            let mut best: Option<(usize, f64)> = None;
+            let mut fits_taken = false;
+            for (t, truth) in truths.iter().enumerate() {
+                if truth.class != dets[d].class {
+                    continue;
+                }
+                let Some(fit) = crit.fit(&dets[d].bbox, &truth.bbox) else {
+                    continue;
+                };
+                if a.truth_det[t].is_some() {
+                    fits_taken = true;
+                } else if best.is_none_or(|(_, f)| fit > f) {
+                    best = Some((t, fit));
+                }
+            }
+            match best {
+                Some((t, _)) => {
+                    a.det_truth[d] = Some(t);
+                    a.truth_det[t] = Some(d);
+                }
+                None => a.duplicate[d] = fits_taken,
+            }
+        }
+        a
+    }
+
+    fn scan_across(
+        truths: &[ClassedBox],
+        dets: &[ScoredBox],
+        crit: &MatchCriterion,
+        first: &Assignment,
+    ) -> Vec<(usize, usize)> {
+        let mut taken: Vec<bool> = first.truth_det.iter().map(Option::is_some).collect();
+        let mut pairs = Vec::new();
+        for d in score_order(dets) {
+            if first.det_truth[d].is_some() {
+                continue;
+            }
+            let mut best: Option<(usize, f64)> = None;
+            for (t, truth) in truths.iter().enumerate() {
+                if let Some(fit) = crit.fit(&dets[d].bbox, &truth.bbox)
+                    && !taken[t]
+                    && best.is_none_or(|(_, f)| fit > f)
+                {
+                    best = Some((t, fit));
+                }
+            }
+            if let Some((t, _)) = best {
+                taken[t] = true;
+                pairs.push((d, t));
+            }
+        }
+        pairs
+    }
+
+    proptest::proptest! {
+        #[test]
+        fn grid_gives_the_plain_scan(
+            truths in proptest::collection::vec((0usize..3, -5i16..200, -5i16..120, 1u8..12, 1u8..12), 20..90),
+            dets in proptest::collection::vec((0usize..3, 0u8..6, -8i16..205, -8i16..125, 1u8..12, 1u8..12), 15..120),
+            min_iou in proptest::sample::select(vec![0.05, 0.3, 0.5, 0.8, 1.0]),
+            distance in proptest::sample::select(vec![0.0, 2.0, 5.5, 16.0, 400.0]),
+        ) {
+            // Sizes and positions on a coarse lattice: exact fits, equal fits and
+            // boxes on cell edges are common; a few boxes lie off the sheet.
+            let b = |x: i16, y: i16, w: u8, h: u8| BBox::new(f64::from(x) * 1.5, f64::from(y) * 1.5, f64::from(w) * 3.0, f64::from(h) * 3.0);
+            let truths: Vec<ClassedBox> = truths.iter().map(|&(c, x, y, w, h)| ClassedBox { class: c, bbox: b(x, y, w, h) }).collect();
+            let dets: Vec<ScoredBox> = dets.iter().map(|&(c, s, x, y, w, h)| ScoredBox { class: c, score: f64::from(s) / 6.0, bbox: b(x, y, w, h) }).collect();
+            for crit in [MatchCriterion::Iou { min_iou }, MatchCriterion::CentreDistance { max_distance: distance }] {
+                let a = match_sheet(&truths, &dets, &crit);
+                let want = scan_all(&truths, &dets, &crit);
+                proptest::prop_assert_eq!(&a, &want);
+                proptest::prop_assert_eq!(
+                    match_across_classes(&truths, &dets, &crit, &a),
+                    scan_across(&truths, &dets, &crit, &want)
+                );
             }
         }
     }

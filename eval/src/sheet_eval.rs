@@ -36,7 +36,9 @@ use crate::confusion::{ConfusionTable, add_sheet_to_detection_table, empty_detec
 use crate::error::{EvalError, Result, in_range, setting};
 use crate::matching::MatchCriterion;
 use crate::operating::{OperatingPoint, f1_max, precision_at_recall, recall_at_precision};
+use crate::overlaps::SheetOverlaps;
 use crate::pr::{PrCurve, f1};
+use crate::ranking::{ApScratch, RankedFlags, Ranking, flat_true_positives, weights_of};
 use serde::{Deserialize, Serialize};
 
 pub use crate::sheets::{
@@ -44,18 +46,25 @@ pub use crate::sheets::{
     prepare_sheets, sheet_outcomes,
 };
 
-/// Per-class all-point and 101-point APs of sheets `idx`, and their means.
+/// Per-class all-point APs of the sheets with `weights`, and the means of the
+/// per-class all-point and 101-point APs.
 fn class_aps(
-    sheets: &[SheetOutcomes],
-    idx: &[usize],
+    ranking: &Ranking,
+    flags: &RankedFlags,
+    weights: &[u32],
     n_classes: usize,
-) -> (Vec<ApFigures>, Option<f64>, Option<f64>) {
-    let aps: Vec<ApFigures> = (0..n_classes)
-        .map(|k| ApFigures::of(&pooled_curve(sheets, idx, Some(k))))
-        .collect();
-    let m_all = mean_defined(aps.iter().map(|a| a.all_point));
-    let m_101 = mean_defined(aps.iter().map(|a| a.points_101));
-    (aps, m_all, m_101)
+    s: &mut ApScratch,
+) -> (Vec<Option<f64>>, Option<f64>, Option<f64>) {
+    let mut all = Vec::with_capacity(n_classes);
+    let mut p101 = Vec::with_capacity(n_classes);
+    for k in 0..n_classes {
+        let (a, p) = ranking.ap_into(Some(k), flags, weights, s);
+        all.push(a);
+        p101.push(p);
+    }
+    let m_all = mean_defined(all.iter().copied());
+    let m_101 = mean_defined(p101);
+    (all, m_all, m_101)
 }
 
 /// How the operating threshold is chosen (on the micro curve).
@@ -347,23 +356,27 @@ fn opt_f1(p: Option<f64>, r: Option<f64>) -> Option<f64> {
     }
 }
 
-/// Precision, recall, F1, false alarms per sheet and misses per sheet of
-/// class `k` (or all classes pooled, `None`) on sheets `idx` at threshold `t`.
-fn stats_at(
-    outcomes: &[SheetOutcomes],
-    idx: &[usize],
-    t: f64,
-    k: Option<usize>,
-) -> [Option<f64>; 5] {
-    let (mut kept, mut tp, mut truths) = (0, 0, 0);
-    for &i in idx {
-        let (a, b, c) = match k {
-            Some(k) => class_counts_at(&outcomes[i], t, k),
+/// Each sheet's (kept, true positives, ground truth) at threshold `t`, for
+/// class `k` or all classes pooled (`None`).
+fn sheet_counts(outcomes: &[SheetOutcomes], t: f64, k: Option<usize>) -> Vec<(u64, u64, u64)> {
+    outcomes
+        .iter()
+        .map(|o| match k {
+            Some(k) => class_counts_at(o, t, k),
             None => {
-                let (a, b, _, c) = counts_at(&outcomes[i], t);
+                let (a, b, _, c) = counts_at(o, t);
                 (a, b, c)
             }
-        };
+        })
+        .collect()
+}
+
+/// Precision, recall, F1, false alarms per sheet and misses per sheet of the
+/// sheets `idx`, from each sheet's [`sheet_counts`].
+fn stats_at(counts: &[(u64, u64, u64)], idx: &[usize]) -> [Option<f64>; 5] {
+    let (mut kept, mut tp, mut truths) = (0, 0, 0);
+    for &i in idx {
+        let (a, b, c) = counts[i];
         kept += a;
         tp += b;
         truths += c;
@@ -379,33 +392,31 @@ fn stats_at(
     ]
 }
 
-/// Per-class figures at threshold `t`, with intervals when `b` is given.
+/// Per-class figures at threshold `t`, with intervals over the replicates
+/// `draws` when `b` is given.
 fn class_operating(
     outcomes: &[SheetOutcomes],
     class_names: &[String],
     t: f64,
     b: Option<&BootstrapConfig>,
+    draws: &[Vec<usize>],
 ) -> Result<Vec<ClassOperating>> {
     let all: Vec<usize> = (0..outcomes.len()).collect();
-    let draws = match b {
-        Some(b) => resample_indices(outcomes.len(), b)?,
-        None => Vec::new(),
-    };
     let mut rows = Vec::with_capacity(class_names.len());
     for (k, name) in class_names.iter().enumerate() {
+        let counts = sheet_counts(outcomes, t, Some(k));
         let (mut kept, mut tp, mut truths) = (0, 0, 0);
-        for o in outcomes {
-            let (a, p, g) = class_counts_at(o, t, k);
+        for &(a, p, g) in &counts {
             kept += a;
             tp += p;
             truths += g;
         }
-        let est = stats_at(outcomes, &all, t, Some(k));
+        let est = stats_at(&counts, &all);
         let mut ivs: [Option<Interval>; 5] = Default::default();
         if let Some(b) = b {
             let mut reps: [Vec<Option<f64>>; 5] = Default::default();
-            for idx in &draws {
-                for (j, v) in stats_at(outcomes, idx, t, Some(k)).into_iter().enumerate() {
+            for idx in draws {
+                for (j, v) in stats_at(&counts, idx).into_iter().enumerate() {
                     reps[j].push(v);
                 }
             }
@@ -465,37 +476,53 @@ pub fn evaluate_sheets(
     }
     let n = class_names.len();
     let prepared = prepare_sheets(sheets, class_names)?;
-    let outcomes: Vec<SheetOutcomes> = prepared
-        .iter()
-        .map(|p| sheet_outcomes(p, n, &cfg.criterion))
-        .collect();
-    let all: Vec<usize> = (0..outcomes.len()).collect();
+    // The geometry of every sheet once; each IoU threshold then repeats only
+    // the greedy pass ([`crate::overlaps`]), and every pooled curve is one walk
+    // over one ranking ([`crate::ranking`]), point for point the curve that
+    // `pooled_curve` builds.
+    let overlaps: Vec<SheetOverlaps> = prepared.iter().map(SheetOverlaps::new).collect();
+    let outcomes: Vec<SheetOutcomes> = match cfg.criterion {
+        MatchCriterion::Iou { min_iou } => prepared
+            .iter()
+            .zip(&overlaps)
+            .map(|(p, o)| o.outcomes(p, n, min_iou))
+            .collect(),
+        MatchCriterion::CentreDistance { .. } => prepared
+            .iter()
+            .map(|p| sheet_outcomes(p, n, &cfg.criterion))
+            .collect(),
+    };
+    let ranking = Ranking::new(&outcomes, n);
+    let true_positive = ranking.flags(&flat_true_positives(&outcomes));
+    let ones = vec![1u32; outcomes.len()];
 
     let mut per_class = Vec::with_capacity(n);
     for (k, name) in class_names.iter().enumerate() {
         per_class.push(ClassSummary {
             class: name.clone(),
-            figures: summarise(pooled_curve(&outcomes, &all, Some(k)), cfg)?,
+            figures: summarise(ranking.curve(Some(k), &true_positive, &ones), cfg)?,
         });
     }
-    let micro = summarise(pooled_curve(&outcomes, &all, None), cfg)?;
+    let micro = summarise(ranking.curve(None, &true_positive, &ones), cfg)?;
     let map_all_point = mean_defined(per_class.iter().map(|c| c.figures.ap.all_point));
     let map_101 = mean_defined(per_class.iter().map(|c| c.figures.ap.points_101));
 
+    let mut buf = ApScratch::default();
+    let mut sweep_tp = Vec::with_capacity(ranking.len());
     let iou_sweep = (1..=9)
         .map(|i| {
             let min_iou = f64::from(i) / 10.0;
-            let crit = MatchCriterion::Iou { min_iou };
-            let o: Vec<SheetOutcomes> = prepared
-                .iter()
-                .map(|p| sheet_outcomes(p, n, &crit))
-                .collect();
-            let (_, m_all, m_101) = class_aps(&o, &all, n);
+            sweep_tp.clear();
+            for o in &overlaps {
+                o.push_true_positives(min_iou, &mut sweep_tp);
+            }
+            let flags = ranking.flags(&sweep_tp);
+            let (_, m_all, m_101) = class_aps(&ranking, &flags, &ones, n, &mut buf);
             IouSweepRow {
                 min_iou,
                 map_all_point: m_all,
                 map_101: m_101,
-                micro_ap_all_point: ApFigures::of(&pooled_curve(&o, &all, None)).all_point,
+                micro_ap_all_point: ranking.ap_into(None, &flags, &ones, &mut buf).0,
             }
         })
         .collect();
@@ -505,14 +532,19 @@ pub fn evaluate_sheets(
         Some(threshold) => {
             let mut table = empty_detection_table(class_names);
             let mut rows = Vec::with_capacity(prepared.len());
-            for (p, o) in prepared.iter().zip(&outcomes) {
-                add_sheet_to_detection_table(
-                    &mut table,
-                    &p.truths,
-                    &p.dets,
-                    &cfg.criterion,
-                    threshold,
-                );
+            for ((p, o), ov) in prepared.iter().zip(&outcomes).zip(&overlaps) {
+                match cfg.criterion {
+                    MatchCriterion::Iou { min_iou } => {
+                        ov.add_to_detection_table(p, min_iou, threshold, &mut table);
+                    }
+                    MatchCriterion::CentreDistance { .. } => add_sheet_to_detection_table(
+                        &mut table,
+                        &p.truths,
+                        &p.dets,
+                        &cfg.criterion,
+                        threshold,
+                    ),
+                }
                 let (kept, tp, dup, n_truths) = counts_at(o, threshold);
                 rows.push(SheetRow {
                     sheet: p.sheet.clone(),
@@ -543,10 +575,18 @@ pub fn evaluate_sheets(
         Some(calibration(&scored, cfg.calibration_bins)?)
     };
 
+    let draws = match &cfg.bootstrap {
+        Some(b) => resample_indices(outcomes.len(), b)?,
+        None => Vec::new(),
+    };
     let intervals = match &cfg.bootstrap {
         Some(b) => Some(sheet_intervals(
             &outcomes,
-            n,
+            &Ranked {
+                ranking: &ranking,
+                flags: &true_positive,
+            },
+            &draws,
             operating_threshold,
             b,
             &micro,
@@ -563,6 +603,7 @@ pub fn evaluate_sheets(
             class_names,
             t,
             cfg.bootstrap.as_ref(),
+            &draws,
         )?),
         None => None,
     };
@@ -586,10 +627,17 @@ pub fn evaluate_sheets(
     })
 }
 
+/// The ranking of the evaluated detections and their outcomes at the main criterion.
+struct Ranked<'a> {
+    ranking: &'a Ranking,
+    flags: &'a RankedFlags,
+}
+
 #[allow(clippy::too_many_arguments)]
 fn sheet_intervals(
     outcomes: &[SheetOutcomes],
-    n: usize,
+    ranked: &Ranked,
+    draws: &[Vec<usize>],
     threshold: Option<f64>,
     b: &BootstrapConfig,
     micro: &CurveSummary,
@@ -597,28 +645,31 @@ fn sheet_intervals(
     map_101: Option<f64>,
     per_class: &[ClassSummary],
 ) -> Result<TrustIntervals> {
-    let draws = resample_indices(outcomes.len(), b)?;
+    let n = per_class.len();
+    let counts = threshold.map(|t| sheet_counts(outcomes, t, None));
     let mut r_map_all = Vec::with_capacity(draws.len());
     let mut r_map_101 = Vec::with_capacity(draws.len());
     let mut r_micro = Vec::with_capacity(draws.len());
     let mut r_class = vec![Vec::with_capacity(draws.len()); n];
     let mut r_op: [Vec<Option<f64>>; 5] = Default::default();
-    for idx in &draws {
-        let (aps, m_all, m_101) = class_aps(outcomes, idx, n);
+    let mut buf = ApScratch::default();
+    for idx in draws {
+        let w = weights_of(idx, outcomes.len());
+        let (aps, m_all, m_101) = class_aps(ranked.ranking, ranked.flags, &w, n, &mut buf);
         r_map_all.push(m_all);
         r_map_101.push(m_101);
-        for (k, a) in aps.iter().enumerate() {
-            r_class[k].push(a.all_point);
+        for (k, a) in aps.into_iter().enumerate() {
+            r_class[k].push(a);
         }
-        r_micro.push(ApFigures::of(&pooled_curve(outcomes, idx, None)).all_point);
-        if let Some(t) = threshold {
-            for (j, v) in stats_at(outcomes, idx, t, None).into_iter().enumerate() {
+        r_micro.push(ranked.ranking.ap_into(None, ranked.flags, &w, &mut buf).0);
+        if let Some(c) = &counts {
+            for (j, v) in stats_at(c, idx).into_iter().enumerate() {
                 r_op[j].push(v);
             }
         }
     }
     let all: Vec<usize> = (0..outcomes.len()).collect();
-    let op_estimate = threshold.map(|t| stats_at(outcomes, &all, t, None));
+    let op_estimate = counts.map(|c| stats_at(&c, &all));
     let op = |j: usize| -> Result<Option<Interval>> {
         match op_estimate {
             Some(e) => Ok(Some(interval_from(e[j], &r_op[j], b.level)?)),
