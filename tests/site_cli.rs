@@ -280,24 +280,72 @@ fn every_command_has_help_with_an_example() {
 }
 
 #[test]
-fn demo_runs_the_job_on_the_synthetic_plant() {
+fn demo_runs_the_whole_job_and_writes_the_report() {
     let tmp = tempfile::tempdir().unwrap();
+    // One epoch per model keeps the test short; the README's demo trains four.
     let run = symtrust(
         tmp.path(),
-        &["demo", "--out", "d", "--sheets", "2", "--json"],
+        &["demo", "--out", "d", "--epochs", "1", "--json"],
     )
     .expect_code(0);
     let v = run.json();
-    assert_eq!(v["held_out"], serde_json::json!(["fp-a-0001"]));
-    let id = v["crop_library"].as_str().unwrap();
+    let report = std::path::PathBuf::from(v["report"].as_str().unwrap());
+    assert!(report.is_file(), "{}", report.display());
     assert!(
-        tmp.path()
-            .join("d/crops")
-            .join(id)
-            .join("manifest.json")
-            .is_file()
+        report.ends_with("d/reports/demo/index.html"),
+        "{}",
+        report.display()
     );
-    assert!(v["counts"]["positive"].as_u64().unwrap() > 10);
+    let html = std::fs::read_to_string(&report).unwrap();
+    assert!(
+        html.contains("qualified people"),
+        "the report carries the caution"
+    );
+    let statement = v["trust_statement"].as_str().unwrap();
+    assert!(
+        statement.starts_with("On 2 held-out sheets with"),
+        "{statement}"
+    );
+    // HTML escapes ">=", so compare the opening words.
+    assert!(
+        html.contains(&statement[..40]),
+        "the report opens with the same trust statement"
+    );
+    // The three evaluations exist and name the sheets they were made on.
+    for (name, prefix) in [
+        ("style-a-model-on-style-a", "fp-a-"),
+        ("style-a-model-on-style-b", "fp-b-"),
+        ("retrained-on-style-b", "fp-b-"),
+    ] {
+        let m: serde_json::Value = serde_json::from_str(
+            &std::fs::read_to_string(tmp.path().join("d/evals").join(name).join("metrics.json"))
+                .unwrap(),
+        )
+        .unwrap();
+        let sheets = m["sheets"].as_array().unwrap();
+        assert!(!sheets.is_empty());
+        assert!(
+            sheets
+                .iter()
+                .all(|s| s["sheet"].as_str().unwrap().starts_with(prefix)),
+            "{name}"
+        );
+        assert!(m["sheet_level"]["map_all_point"].is_number(), "{name}");
+    }
+    // Held-out sheets never gave a crop to either library.
+    let held = symtrust_labels::site::Site::open(&tmp.path().join("d"))
+        .unwrap()
+        .config
+        .held_out;
+    assert_eq!(held.len(), 5, "{held:?}");
+    for entry in std::fs::read_dir(tmp.path().join("d/crops")).unwrap() {
+        let dir = entry.unwrap().path();
+        if !dir.join("manifest.json").is_file() {
+            continue;
+        }
+        let lib = symtrust_labels::crops::CropLibrary::open(&dir).unwrap();
+        assert!(lib.records.iter().all(|r| !held.contains(&r.sheet)));
+    }
 }
 
 #[test]
