@@ -5,7 +5,10 @@ Run from the repository root in a throwaway virtual environment:
 
     python3 -m venv /tmp/refenv
     /tmp/refenv/bin/pip install scikit-learn pycocotools scipy numpy mean-average-precision
-    /tmp/refenv/bin/python eval/tests/reference/make_reference.py
+    /tmp/refenv/bin/python eval/tests/reference/make_reference.py [OUTPUT.json]
+
+OUTPUT.json defaults to reference.json next to this script;
+eval/tests/reference/check_live.sh passes a temporary path and compares.
 
 All inputs are synthetic (a fictional plant's symbol classes, random boxes and
 scores from a seeded numpy generator) and are written into the JSON next to the
@@ -333,10 +336,11 @@ def main():
     sheets, out["coco"] = coco_reference(rng)
     out["voc"] = voc_reference(sheets)
     out["versions"]["mean-average-precision"] = version("mean-average-precision")
-    with open(OUT, "w") as f:
+    path = sys.argv[1] if len(sys.argv) > 1 else OUT
+    with open(path, "w") as f:
         json.dump(out, f, indent=1)
         f.write("\n")
-    print(f"wrote {OUT}")
+    print(f"wrote {path}")
 
 
 if __name__ == "__main__":
