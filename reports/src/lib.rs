@@ -30,6 +30,7 @@ pub mod sheets;
 pub mod side_by_side;
 pub mod tables;
 pub mod text;
+pub mod trend;
 
 pub use audit::{Verification, verify};
 pub use error::{ReportError, Result};

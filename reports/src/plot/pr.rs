@@ -141,13 +141,14 @@ fn draw_panel<DB: DrawingBackend>(
             (crate::palette::HIT, crate::palette::Mark::Circle, None)
         };
         if let Some(b) = series.interval {
+            let band = if several { color } else { BAND };
             chart
                 .draw_series(std::iter::once(Rectangle::new(
                     [
                         (b.recall_lower, b.precision_lower),
                         (b.recall_upper, b.precision_upper),
                     ],
-                    BAND.mix(0.18).filled(),
+                    band.mix(0.18).filled(),
                 )))
                 .map_err(pe)?;
             chart
@@ -156,7 +157,7 @@ fn draw_panel<DB: DrawingBackend>(
                         (b.recall_lower, b.precision_lower),
                         (b.recall_upper, b.precision_upper),
                     ],
-                    BAND.mix(0.7).stroke_width(sz(1.0, s)),
+                    band.mix(0.7).stroke_width(sz(1.0, s)),
                 )))
                 .map_err(pe)?;
         }
