@@ -30,9 +30,11 @@
 //! float rounding elsewhere (tested).
 
 use super::Float;
+use super::direct;
 use super::matmul::{View, gemm};
 use candle_core::{CpuStorage, CustomOp3, Layout, Result, Shape, Storage, Tensor, bail};
 use rayon::prelude::*;
+use std::any::TypeId;
 use std::sync::OnceLock;
 
 /// Samples per group in the backward pass (fixed, so sums never depend on threads).
@@ -280,7 +282,35 @@ fn sum<T: Float>(v: &[T]) -> T {
     total
 }
 
+/// The operands as f32 slices, with the instruction set to run them on,
+/// when `T` is f32 and [`direct::plan`] takes the block.
+#[allow(clippy::type_complexity)]
+fn direct_f32<'a, T: Float>(
+    g: &Geometry,
+    x: &'a [T],
+    w: &'a [T],
+    bias: &'a [T],
+    out: &'a mut [T],
+) -> Option<(direct::Isa, &'a [f32], &'a [f32], &'a [f32], &'a mut [f32])> {
+    if TypeId::of::<T>() != TypeId::of::<f32>() {
+        return None;
+    }
+    let isa = direct::plan(g)?;
+    let cast = |s: &'a [T]| {
+        // SAFETY: T is f32 (same TypeId), so the slice is reinterpreted as itself.
+        unsafe { std::slice::from_raw_parts(s.as_ptr().cast::<f32>(), s.len()) }
+    };
+    // SAFETY: as above; the mutable borrow is moved into the result.
+    let out = unsafe { std::slice::from_raw_parts_mut(out.as_mut_ptr().cast::<f32>(), out.len()) };
+    Some((isa, cast(x), cast(w), cast(bias), out))
+}
+
 /// The forward pass over the batch: output and pool indices (empty without pooling).
+///
+/// Blocks with one input channel and pooling run, in f32 on CPUs with AVX2 +
+/// FMA or AVX-512F, on a direct convolution (the first layer: its 25-long
+/// inner dimension is too short for a GEMM to pay) that fuses bias, ReLU,
+/// pooling and the arg-max; all others on im2col + GEMM.
 pub fn forward<T: Float>(g: &Geometry, x: &[T], w: &[T], bias: &[T]) -> (Vec<T>, Vec<u8>) {
     let (per_in, per_out) = (g.in_len(), g.out_len());
     let mut out = vec![T::ZERO; g.batch * per_out];
@@ -289,7 +319,14 @@ pub fn forward<T: Float>(g: &Geometry, x: &[T], w: &[T], bias: &[T]) -> (Vec<T>,
         return (out, idx);
     }
     let init = || (Vec::new(), Vec::new());
-    if g.pool {
+    if let Some((isa, x, w, bias, out)) = direct_f32(g, x, w, bias, &mut out) {
+        out.par_chunks_mut(per_out)
+            .zip(idx.par_chunks_mut(per_out))
+            .enumerate()
+            .for_each(|(s, (o, i))| {
+                direct::forward_sample(isa, g, &x[s * per_in..][..per_in], w, bias, o, i)
+            });
+    } else if g.pool {
         out.par_chunks_mut(per_out)
             .zip(idx.par_chunks_mut(per_out))
             .enumerate()
@@ -547,5 +584,187 @@ impl CustomOp3 for ConvBlock {
             candle_core::DType::F64 => self.bwd_typed::<f64>(&g, x, w, res, grad),
             d => bail!("conv block: no backward for {d:?}"),
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use candle_core::Device;
+    use proptest::prelude::*;
+    use symtrust_labels::SeededRng;
+
+    /// The im2col + GEMM path for every sample (the direct kernel's twin).
+    fn forward_gemm(g: &Geometry, x: &[f32], w: &[f32], b: &[f32]) -> (Vec<f32>, Vec<u8>) {
+        let (per_in, per_out) = (g.in_len(), g.out_len());
+        let mut out = vec![0f32; g.batch * per_out];
+        let mut idx = vec![0u8; g.batch * per_out];
+        let (mut cols, mut z) = (Vec::new(), Vec::new());
+        for s in 0..g.batch {
+            forward_sample(
+                g,
+                &x[s * per_in..][..per_in],
+                w,
+                b,
+                &mut out[s * per_out..][..per_out],
+                &mut idx[s * per_out..][..per_out],
+                &mut cols,
+                &mut z,
+            );
+        }
+        (out, idx)
+    }
+
+    /// The direct kernel on `isa` for every sample.
+    fn forward_direct(
+        isa: direct::Isa,
+        g: &Geometry,
+        x: &[f32],
+        w: &[f32],
+        b: &[f32],
+    ) -> (Vec<f32>, Vec<u8>) {
+        let (per_in, per_out) = (g.in_len(), g.out_len());
+        let mut out = vec![0f32; g.batch * per_out];
+        let mut idx = vec![0u8; g.batch * per_out];
+        for s in 0..g.batch {
+            direct::forward_sample(
+                isa,
+                g,
+                &x[s * per_in..][..per_in],
+                w,
+                b,
+                &mut out[s * per_out..][..per_out],
+                &mut idx[s * per_out..][..per_out],
+            );
+        }
+        (out, idx)
+    }
+
+    /// Candle's stock conv2d + bias, ReLU and max_pool2d (the reference library).
+    fn forward_candle(g: &Geometry, x: &[f32], w: &[f32], b: &[f32]) -> Vec<f32> {
+        let dev = Device::Cpu;
+        let xt = Tensor::from_slice(x, (g.batch, 1, g.h, g.w), &dev).unwrap();
+        let wt = Tensor::from_slice(w, (g.c_out, 1, g.k, g.k), &dev).unwrap();
+        let bt = Tensor::from_slice(b, (1, g.c_out, 1, 1), &dev).unwrap();
+        let mut y = xt
+            .conv2d(&wt, 0, 1, 1, 1)
+            .unwrap()
+            .broadcast_add(&bt)
+            .unwrap();
+        if g.relu {
+            y = y.relu().unwrap();
+        }
+        y.max_pool2d(2)
+            .unwrap()
+            .flatten_all()
+            .unwrap()
+            .to_vec1()
+            .unwrap()
+    }
+
+    fn max_rel(a: &[f32], b: &[f32]) -> f32 {
+        assert_eq!(a.len(), b.len());
+        let scale = b.iter().fold(1e-12f32, |m, v| m.max(v.abs()));
+        a.iter().zip(b).fold(0f32, |m, (p, q)| m.max((p - q).abs())) / scale
+    }
+
+    /// Every instruction set the direct kernel has on this CPU, best first.
+    fn isas() -> Vec<direct::Isa> {
+        let mut v: Vec<direct::Isa> = direct::Isa::detect().into_iter().collect();
+        #[cfg(target_arch = "x86_64")]
+        if std::arch::is_x86_feature_detected!("avx2")
+            && std::arch::is_x86_feature_detected!("fma")
+            && !v.contains(&direct::Isa::Avx2)
+        {
+            v.push(direct::Isa::Avx2);
+        }
+        v
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig { cases: 48, ..ProptestConfig::default() })]
+
+        #[test]
+        fn direct_first_layer_kernel_matches_gemm_path_and_candle(
+            seed in 0u64..10_000,
+            batch in 1usize..4,
+            c_out in 1usize..10,
+            k in 1usize..8,
+            extra_h in 0usize..9,
+            extra_w in 16usize..60,
+            relu in any::<bool>(),
+        ) {
+            // Pooled widths from 8 to 37 (odd conv widths included): below,
+            // at and above one or two vectors of either instruction set.
+            let (h, w) = (k + 1 + extra_h, k - 1 + extra_w);
+            let g = Geometry { batch, c_in: 1, h, w, c_out, k, relu, pool: true };
+            let mut rng = SeededRng::new(seed);
+            let mut rand = |n: usize| -> Vec<f32> {
+                (0..n).map(|_| rng.range_f64(-1.0, 1.0) as f32).collect()
+            };
+            let (x, wt, b) = (rand(batch * h * w), rand(c_out * k * k), rand(c_out));
+            let (gemm_out, gemm_idx) = forward_gemm(&g, &x, &wt, &b);
+            let candle = forward_candle(&g, &x, &wt, &b);
+            prop_assert!(max_rel(&gemm_out, &candle) <= 1e-5);
+            let mut first: Option<(Vec<f32>, Vec<u8>)> = None;
+            for isa in isas() {
+                if direct::plan(&g).is_none() && isa == direct::Isa::detect().unwrap() {
+                    continue;
+                }
+                let (_, ow) = g.out_hw();
+                if ow < isa_lanes(isa) {
+                    continue;
+                }
+                let (out, idx) = forward_direct(isa, &g, &x, &wt, &b);
+                let e = max_rel(&out, &gemm_out);
+                prop_assert!(e <= 1e-5, "{isa:?}: against the GEMM path, relative error {e}");
+                let e = max_rel(&out, &candle);
+                prop_assert!(e <= 1e-5, "{isa:?}: against Candle, relative error {e}");
+                prop_assert_eq!(&idx, &gemm_idx, "{:?}: pool positions", isa);
+                match &first {
+                    // Same products in the same order with FMA: bit-identical.
+                    Some((o, i)) => prop_assert!(o == &out && i == &idx, "{:?} differs", isa),
+                    None => first = Some((out, idx)),
+                }
+            }
+        }
+    }
+
+    fn isa_lanes(isa: direct::Isa) -> usize {
+        match isa {
+            #[cfg(target_arch = "x86_64")]
+            direct::Isa::Avx512 => 16,
+            #[cfg(target_arch = "x86_64")]
+            direct::Isa::Avx2 => 8,
+        }
+    }
+
+    #[test]
+    fn batch_forward_takes_the_direct_path_for_the_first_layer() {
+        // The public entry point on the default first layer (1 x 100 x 100,
+        // k 5, 16 channels) against the GEMM path, on a few samples.
+        let g = Geometry {
+            batch: 3,
+            c_in: 1,
+            h: 100,
+            w: 100,
+            c_out: 16,
+            k: 5,
+            relu: true,
+            pool: true,
+        };
+        let mut rng = SeededRng::new(4);
+        let mut rand =
+            |n: usize| -> Vec<f32> { (0..n).map(|_| rng.uniform() as f32 - 0.5).collect() };
+        let (x, w, b) = (rand(g.batch * g.in_len()), rand(16 * 25), rand(16));
+        let (out, idx) = forward(&g, &x, &w, &b);
+        let (gemm_out, gemm_idx) = forward_gemm(&g, &x, &w, &b);
+        assert!(max_rel(&out, &gemm_out) <= 1e-5);
+        assert_eq!(idx, gemm_idx);
+        assert_eq!(
+            direct::plan(&g).is_some(),
+            direct::Isa::detect().is_some(),
+            "the default first layer is one the direct kernel takes wherever it can run"
+        );
     }
 }
