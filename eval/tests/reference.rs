@@ -14,6 +14,7 @@ use symtrust_eval::bootstrap::quantile;
 use symtrust_eval::calibration::{calibration, fit_platt};
 use symtrust_eval::compare::{McNemarMethod, mcnemar};
 use symtrust_eval::crop_eval::evaluate_crops;
+use symtrust_eval::matching::MatchCriterion;
 use symtrust_eval::sheet_eval::{SheetEvalConfig, SheetInput, TruthSymbol, evaluate_sheets};
 use symtrust_labels::BBox;
 use symtrust_labels::detections::Detection;
@@ -388,6 +389,74 @@ fn sheet_ap_matches_cocoeval() {
             1e-12,
         );
     }
+}
+
+/// pycocotools 2.0.11: AP averaged over COCOeval's ten IoU thresholds
+/// 0.50:0.05:0.95 (101-point, area "all", maxDets 1000) on the same six sheets,
+/// against the mean over the same thresholds of our 101-point mAP; tolerance 1e-6
+/// (both sides sum the same values in another order, so agreement is far closer).
+///
+/// COCOeval's known quirks, and how symtrust handles each rather than copying it:
+/// - **maxDets cap**: it keeps at most `maxDets` detections per image and
+///   category (100 by default), so a dense P&ID sheet silently loses recall and
+///   AP; and `summarize()` computes this very figure (`stats[0]`) with a
+///   hard-coded 100, whatever `params.maxDets` says. symtrust has no cap by
+///   default (`detect --max-per-sheet` is a visible setting); the reference is
+///   computed with maxDets 1000, above every sheet's count, from `eval["precision"]`.
+/// - **area ranges**: COCOeval also reports small/medium/large (32^2 and 96^2
+///   px^2), ignoring ground truth outside the range. Symbol sizes on a sheet
+///   say nothing about difficulty, so symtrust has no area ranges; the
+///   reference uses "all", which spans every box.
+/// - **crowd regions**: a detection on an `iscrowd` annotation is neither a
+///   true nor a false positive, and a crowd region can absorb many detections.
+///   symtrust's counterpart is the ignore region of a label document (legend,
+///   title block), applied by box centre to ground truth and detections alike
+///   before matching; the reference has no crowd annotations.
+/// - **101-point recall grid**: precision is read at `linspace(0, 1, 101)` with
+///   `searchsorted(..., side="left")`: the first point whose recall reaches the
+///   level, 0 where it is never reached. `ap::ap_101` does the same on the
+///   same grid, computed as numpy's linspace computes it (`ap::recall_levels_101`).
+/// - **monotone precision**: COCOeval replaces each precision by the largest
+///   at any higher recall before sampling (the envelope); `ap::ap_101` samples
+///   the same envelope. COCOeval ranks every detection on its own (mergesort by
+///   score), where symtrust groups tied scores into one point so AP does not
+///   depend on input order; and when two free ground-truth boxes fit equally
+///   well COCOeval takes the later one, symtrust the first. The generator keeps
+///   scores distinct and IoUs clear of every threshold, where the rules agree.
+/// - **thresholds**: COCOeval matches at `IoU >= t` with `t` from numpy's
+///   linspace (0.8999999999999999 for 0.9); the thresholds are taken from the
+///   reference file as it holds them.
+#[test]
+fn sheet_ap_over_iou_050_095_matches_cocoeval() {
+    let r = reference();
+    let c = &r["coco"];
+    let names: Vec<String> = c["classes"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_str().unwrap().to_string())
+        .collect();
+    let thresholds = floats(&c["iou_thresholds"]);
+    assert_eq!(thresholds.len(), 10, "COCOeval iouThrs 0.50:0.05:0.95");
+    let sheets = coco_sheets(c);
+    let mut sum = 0.0;
+    for &t in &thresholds {
+        let cfg = SheetEvalConfig {
+            criterion: MatchCriterion::Iou { min_iou: t },
+            bootstrap: None,
+            ..SheetEvalConfig::default()
+        };
+        sum += evaluate_sheets(&sheets, &names, &cfg)
+            .unwrap()
+            .map_101
+            .unwrap();
+    }
+    close(
+        "COCOeval AP at IoU 0.50:0.95",
+        sum / thresholds.len() as f64,
+        f(&c["ap50_95_101point"]),
+        1e-6,
+    );
 }
 
 /// mean-average-precision 2024.1.5.0 (its all-point interpolation, the Pascal

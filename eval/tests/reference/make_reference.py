@@ -162,8 +162,11 @@ def quantile_reference(rng):
 
 COCO_CLASSES = ["gate_valve", "pump", "instrument_bubble", "reducer"]
 SWEEP = [0.5, 0.6, 0.7, 0.8, 0.9]
-# Every IoU the generated data must keep clear of (the full symtrust sweep).
-GUARDED = [0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, 0.9]
+# The IoU sweep of symtrust.
+SYMTRUST_SWEEP = [0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, 0.9]
+# Every IoU the generated data must keep clear of: the symtrust sweep and
+# COCOeval's thresholds 0.50, 0.55, ..., 0.95.
+GUARDED = SYMTRUST_SWEEP + [0.55, 0.65, 0.75, 0.85, 0.95]
 
 
 def iou(a, b):
@@ -260,6 +263,11 @@ def coco_reference(rng):
         ev.summarize()
     prec = ev.eval["precision"]  # [iou, recall, class, area, maxDets]
     thr = list(ev.params.iouThrs)
+    # summarize() computes stats[0] with a hard-coded maxDets=100, which is not
+    # among the maxDets set above (it reports -1); the same formula
+    # (mean of the defined entries) at maxDets[2] = 1000 and area "all":
+    p_all = prec[:, :, :, 0, 2]
+    ap50_95 = float(np.mean(p_all[p_all > -1]))
 
     def class_ap(t_index, k):
         p = prec[t_index, :, k, 0, 2]
@@ -275,6 +283,10 @@ def coco_reference(rng):
         "classes": COCO_CLASSES,
         "sheets": sheets,
         "stats_1_ap50_101point": float(ev.stats[1]),
+        # AP averaged over IoU 0.50:0.05:0.95 (101-point, area "all", maxDets[2]),
+        # and the thresholds as COCOeval holds them (numpy linspace values).
+        "ap50_95_101point": ap50_95,
+        "iou_thresholds": [float(t) for t in thr],
         "iou_sweep": sweep,
     }
 
@@ -306,7 +318,7 @@ def voc_reference(sheets):
         metric.add(preds, gt)
     has_truth = [any(g["class"] == c for s in sheets for g in s["truths"]) for c in COCO_CLASSES]
     sweep = []
-    for t in GUARDED:
+    for t in SYMTRUST_SWEEP:
         per = []
         for k in range(len(COCO_CLASSES)):
             ap, _, _ = metric.metric_fn._evaluate_class(k, t, None, "soft")
