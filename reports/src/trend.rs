@@ -51,7 +51,7 @@ pub fn trend_figure(classes: &[String], rows: &[HistoryRow]) -> Result<Figure> {
         .collect();
     let maps = vec![
         LineSeries {
-            name: "champion before the run".into(),
+            name: "champion".into(),
             points: rows
                 .iter()
                 .enumerate()
@@ -59,7 +59,7 @@ pub fn trend_figure(classes: &[String], rows: &[HistoryRow]) -> Result<Figure> {
                 .collect(),
         },
         LineSeries {
-            name: "challenger trained by the run".into(),
+            name: "challenger".into(),
             points: rows
                 .iter()
                 .enumerate()

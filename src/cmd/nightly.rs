@@ -20,7 +20,7 @@
 //! folder is ever deleted.
 
 use crate::cmd::compare::{RuleArg, compare_records, stamp_now, write_comparison};
-use crate::cmd::eval::{args_from as eval_args, build_record, write_folder};
+use crate::cmd::eval::{args_from as eval_args, build_record, render_report, write_folder};
 use crate::cmd::train::{args_from as train_args, train_model};
 use crate::context::{Ctx, usage};
 use crate::exit;
@@ -39,13 +39,16 @@ use symtrust_labels::crops::{CropRequest, build_library};
 use symtrust_labels::detections::{DETECTIONS_SCHEMA_VERSION, DetectionSet, write_detections};
 use symtrust_labels::nightly::champion::{Champion, read_champion, write_champion};
 use symtrust_labels::nightly::changes::{LabelsSeen, compare, fingerprint, read_seen, write_seen};
-use symtrust_labels::nightly::history::{ApCell, HISTORY_FILE, HistoryRow, append_history};
+use symtrust_labels::nightly::history::{
+    ApCell, HISTORY_FILE, HistoryRow, append_history, read_history,
+};
 use symtrust_labels::nightly::lock::{Acquired, acquire, note_now};
 use symtrust_labels::nightly::{nightly_dir, runs_dir};
 use symtrust_labels::sheets::load_sheet;
 use symtrust_labels::site::Site;
 use symtrust_labels::split::split_sheets;
 use symtrust_labels::store::LabelStore;
+use symtrust_reports::trend::{trend_figure, write_trend};
 use symtrust_trainer::Classifier;
 
 /// Arguments of `symtrust nightly`.
@@ -241,6 +244,32 @@ fn recover(ctx: &Ctx, site: &Site) -> anyhow::Result<()> {
             write_atomic(&dir.join("abandoned"), now_rfc3339().as_bytes())?;
         }
     }
+    Ok(())
+}
+
+/// The run's report (challenger beside champion) and the trend of the history.
+fn render_run(ctx: &Ctx, site: &Site, dir: &Path, with_champion: bool) -> anyhow::Result<()> {
+    let beside = if with_champion {
+        vec![(dir.join("eval-champion"), Some("champion".to_string()))]
+    } else {
+        Vec::new()
+    };
+    let rendered = render_report(
+        ctx,
+        site,
+        &dir.join("eval-challenger"),
+        &beside,
+        Some((dir.join("report"), Some("challenger".to_string()))),
+    )?;
+    let rows = read_history(&site.root.join(HISTORY_FILE), &site.config.class_names())?;
+    let figure = trend_figure(&site.config.class_names(), &rows)?;
+    let (svg, _) = write_trend(&site.root, &figure)?;
+    ctx.say(format!(
+        "report of the run: {}; trend over {} runs: {}",
+        rendered.index_html.display(),
+        rows.len(),
+        svg.display()
+    ));
     Ok(())
 }
 
@@ -488,6 +517,13 @@ pub fn run(ctx: &Ctx, args: &NightlyArgs) -> anyhow::Result<u8> {
     write_atomic(&dir.join(DECISION_FILE), &bytes)?;
     checkpoint("decided");
     finish(ctx, &site, &dir, &decision, true)?;
+    // The run's report and the trend are for people; a failure here is
+    // reported but does not undo the decision.
+    if let Err(e) = render_run(ctx, &site, &dir, champion_eval.is_some()) {
+        ctx.say(format!(
+            "warning: the run's report or trend plot could not be written: {e:#}"
+        ));
+    }
     lock.release()?;
 
     let line = if promote {
