@@ -62,6 +62,11 @@ def crop_reference(rng):
     probs = np.exp(logits) / np.exp(logits).sum(axis=1, keepdims=True)
     # Two decimals, so tied scores occur (tie handling is part of the check).
     probs = np.round(probs, 2)
+    return crop_case(truth, probs)
+
+
+def crop_case(truth, probs):
+    """Every crop-level reference figure of one set of crops."""
     pred = probs.argmax(axis=1)  # numpy argmax: ties to the lowest index
     labels = list(range(len(CLASSES)))
     cm = confusion_matrix(truth, pred, labels=labels)
@@ -72,6 +77,23 @@ def crop_reference(rng):
     for k in labels:
         y = (truth == k).astype(int)
         sc = probs[:, k]
+        if y.sum() == 0:
+            # A class absent from the truth: AP and ROC AUC are undefined
+            # (scikit-learn warns or raises); symtrust reports "no data".
+            per_class.append(
+                {
+                    "average_precision_score": None,
+                    "roc_auc_score": None,
+                    "pr_thresholds": None,
+                    "pr_precision": None,
+                    "pr_recall": None,
+                    "precision": nan_to_none(float(p[k])),
+                    "recall": nan_to_none(float(r[k])),
+                    "f1": nan_to_none(float(f[k])),
+                    "support": int(s[k]),
+                }
+            )
+            continue
         prec, rec, thr = precision_recall_curve(y, sc)
         per_class.append(
             {
@@ -95,6 +117,21 @@ def crop_reference(rng):
         "confusion_matrix": cm.tolist(),
         "per_class": per_class,
     }
+
+
+def degenerate_crop_references(rng):
+    """Degenerate crop sets: every score equal (one threshold, all crops
+    predicted background by the lowest-index tie rule), and one class absent
+    from the truth."""
+    n = 30
+    equal = crop_case(rng.integers(0, len(CLASSES), size=n), np.full((n, len(CLASSES)), 0.25))
+    n = 40
+    truth = rng.integers(0, len(CLASSES) - 1, size=n)
+    logits = rng.normal(size=(n, len(CLASSES)))
+    logits[np.arange(n), truth] += 1.0
+    probs = np.round(np.exp(logits) / np.exp(logits).sum(axis=1, keepdims=True), 2)
+    absent = crop_case(truth, probs)
+    return [{"case": "all scores equal", **equal}, {"case": "instrument_bubble absent", **absent}]
 
 
 def calibration_reference(rng):
@@ -347,6 +384,8 @@ def main():
     }
     sheets, out["coco"] = coco_reference(rng)
     out["voc"] = voc_reference(sheets)
+    # A generator of its own, so the data above stays as it was.
+    out["crops_degenerate"] = degenerate_crop_references(np.random.default_rng(20261202))
     out["versions"]["mean-average-precision"] = version("mean-average-precision")
     path = sys.argv[1] if len(sys.argv) > 1 else OUT
     with open(path, "w") as f:
