@@ -35,6 +35,7 @@ th { background: #f2f2f2; text-align: center; }
 td:first-child, th:first-child { text-align: left; white-space: nowrap; }
 #audit-inputs td, #audit-inputs th { text-align: left; }
 tr.pooled td { font-weight: bold; background: #fafafa; }
+.iv { color: var(--muted); font-size: 12px; white-space: nowrap; font-weight: normal; }
 .wide { overflow-x: auto; }
 figure { margin: 14px 0; break-inside: avoid; page-break-inside: avoid; }
 figure svg, figure img.plot { max-width: 100%; height: auto; display: block; }
@@ -76,7 +77,20 @@ fn table_html(t: &Table, pooled_last: bool) -> String {
             s.push_str("<tr>");
         }
         for c in r {
-            let _ = write!(s, "<td>{}</td>", esc(c));
+            // "74.1% (70.0–79.2)": the interval on a line of its own.
+            match c.split_once(" (") {
+                Some((v, iv)) if iv.ends_with(')') && !v.is_empty() && !v.contains(' ') => {
+                    let _ = write!(
+                        s,
+                        "<td>{}<br><span class=\"iv\">({}</span></td>",
+                        esc(v),
+                        esc(iv)
+                    );
+                }
+                _ => {
+                    let _ = write!(s, "<td>{}</td>", esc(c));
+                }
+            }
         }
         s.push_str("</tr>");
     }
