@@ -47,7 +47,7 @@ pub enum DetectorInfo {
     Model {
         /// Model id.
         id: String,
-        /// Folder as given on the command line.
+        /// The model folder, relative to the site root when inside it, else absolute.
         dir: String,
         /// SHA-256 of the weights file.
         weights_sha256: String,

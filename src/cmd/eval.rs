@@ -268,7 +268,23 @@ struct ModelRun {
     calibration_items: Option<Vec<(f64, bool)>>,
 }
 
-fn model_info(dir: &Path, classifier: &Classifier) -> anyhow::Result<DetectorInfo> {
+/// `dir` relative to the site root when it lies inside the site (so the
+/// record stays valid when the site folder moves), else absolute.
+fn site_relative(site: &Site, dir: &Path) -> String {
+    let abs = std::path::absolute(dir).unwrap_or_else(|_| dir.to_path_buf());
+    let root = std::path::absolute(&site.root).unwrap_or_else(|_| site.root.clone());
+    let (abs, root) = (
+        abs.canonicalize().unwrap_or(abs),
+        root.canonicalize().unwrap_or(root),
+    );
+    abs.strip_prefix(&root)
+        .map(Path::to_path_buf)
+        .unwrap_or(abs)
+        .to_string_lossy()
+        .into_owned()
+}
+
+fn model_info(site: &Site, dir: &Path, classifier: &Classifier) -> anyhow::Result<DetectorInfo> {
     let card = classifier.card.as_ref().ok_or_else(|| {
         UsageError(format!(
             "{}: no model card; evaluate a model folder written by `symtrust train`",
@@ -277,7 +293,7 @@ fn model_info(dir: &Path, classifier: &Classifier) -> anyhow::Result<DetectorInf
     })?;
     Ok(DetectorInfo::Model {
         id: card.id.clone(),
-        dir: dir.to_string_lossy().into_owned(),
+        dir: site_relative(site, dir),
         weights_sha256: sha256_file(&dir.join(WEIGHTS_FILE))?,
         card_sha256: sha256_file(&dir.join(CARD_FILE))?,
         crop_library: card.data.crop_library.clone(),
@@ -337,7 +353,7 @@ fn run_model(
     check_settings(&settings)?;
     let classifier = Classifier::load(dir)?;
     check_model(site, &classifier, dir)?;
-    let info = model_info(dir, &classifier)?;
+    let info = model_info(site, dir, &classifier)?;
     let bar = ctx.progress(sheets.len() as u64, "sweeping held-out sheets");
     type SheetResult = (Vec<Detection>, [Option<u64>; 3], Vec<CropDecision>);
     let results: Vec<anyhow::Result<SheetResult>> = sheets
