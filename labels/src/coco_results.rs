@@ -165,7 +165,8 @@ mod tests {
             r#"[{"image_id": 7, "category_id": 3, "bbox": [1, 2, 30, 40], "score": 0.75}]"#,
         );
         let classes = vec!["pump".to_string()];
-        let set = read_coco_results(&results, &index, std::slice::from_ref(&sheet), &classes).unwrap();
+        let set =
+            read_coco_results(&results, &index, std::slice::from_ref(&sheet), &classes).unwrap();
         assert_eq!(set.detections.len(), 1);
         let d = &set.detections[0];
         assert_eq!(
@@ -179,7 +180,8 @@ mod tests {
             "bad.json",
             r#"[{"image_id": 7, "category_id": 3, "bbox": [1, 2, 30, 40], "score": 1.5}]"#,
         );
-        let err = read_coco_results(&bad, &index, std::slice::from_ref(&sheet), &classes).unwrap_err();
+        let err =
+            read_coco_results(&bad, &index, std::slice::from_ref(&sheet), &classes).unwrap_err();
         assert!(err.to_string().contains("result #0: score 1.5"), "{err}");
         let unknown = write(
             dir.path(),
