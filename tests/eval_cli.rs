@@ -9,7 +9,7 @@
 mod util;
 
 use serde_json::Value;
-use std::path::{Path, PathBuf};
+use std::path::Path;
 use std::sync::OnceLock;
 use symtrust_labels::BBox;
 use symtrust_labels::detections::{
@@ -708,7 +708,7 @@ fn compare_evaluates_model_folders_itself() {
         (t["champion_only"].as_u64(), t["challenger_only"].as_u64()),
         (Some(0), Some(0))
     );
-    assert!(PathBuf::from(tmp.path().join("cmp/champion/metrics.json")).is_file());
+    assert!(tmp.path().join("cmp/champion/metrics.json").is_file());
     assert!(tmp.path().join("cmp/challenger/metrics.json").is_file());
 }
 
