@@ -353,11 +353,8 @@ fn fma_peak(threads: usize) -> (f64, &'static str) {
             // Both variants do ITERS x 10 x 8 FMAs (2 flops each) per thread.
             (threads * ITERS * 10 * 8 * 2) as f64 / t.elapsed().as_secs_f64() / 1e9
         };
-        let run = |wide: bool| -> f64 {
-            (0..PEAK_RUNS)
-                .map(|_| run_once(wide))
-                .fold(0.0, f64::max)
-        };
+        let run =
+            |wide: bool| -> f64 { (0..PEAK_RUNS).map(|_| run_once(wide)).fold(0.0, f64::max) };
         let mut best = (0.0, "none");
         if is_x86_feature_detected!("avx2") && is_x86_feature_detected!("fma") {
             best = (run(false), "AVX2 FMA");

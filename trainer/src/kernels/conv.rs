@@ -282,8 +282,8 @@ fn sum<T: Float>(v: &[T]) -> T {
     total
 }
 
-/// The operands as f32 slices, with the instruction set to run them on,
-/// when `T` is f32 and [`direct::plan`] takes the block.
+/// The operands as f32 slices, with the direct kernel to run them on and
+/// its weights, when `T` is f32 and [`direct::plan`] takes the block.
 #[allow(clippy::type_complexity)]
 fn direct_f32<'a, T: Float>(
     g: &Geometry,
@@ -291,26 +291,29 @@ fn direct_f32<'a, T: Float>(
     w: &'a [T],
     bias: &'a [T],
     out: &'a mut [T],
-) -> Option<(direct::Isa, &'a [f32], &'a [f32], &'a [f32], &'a mut [f32])> {
+) -> Option<(direct::Plan, &'a [f32], Vec<f32>, &'a [f32], &'a mut [f32])> {
     if TypeId::of::<T>() != TypeId::of::<f32>() {
         return None;
     }
-    let isa = direct::plan(g)?;
+    let plan = direct::plan(g)?;
     let cast = |s: &'a [T]| {
         // SAFETY: T is f32 (same TypeId), so the slice is reinterpreted as itself.
         unsafe { std::slice::from_raw_parts(s.as_ptr().cast::<f32>(), s.len()) }
     };
     // SAFETY: as above; the mutable borrow is moved into the result.
     let out = unsafe { std::slice::from_raw_parts_mut(out.as_mut_ptr().cast::<f32>(), out.len()) };
-    Some((isa, cast(x), cast(w), cast(bias), out))
+    let w = direct::prepare_weights(plan, g, cast(w));
+    Some((plan, cast(x), w, cast(bias), out))
 }
 
 /// The forward pass over the batch: output and pool indices (empty without pooling).
 ///
-/// Blocks with one input channel and pooling run, in f32 on CPUs with AVX2 +
-/// FMA or AVX-512F, on a direct convolution (the first layer: its 25-long
-/// inner dimension is too short for a GEMM to pay) that fuses bias, ReLU,
-/// pooling and the arg-max; all others on im2col + GEMM.
+/// Pooled blocks run, in f32 on CPUs with AVX2 + FMA or AVX-512F, on a
+/// direct convolution that applies bias, ReLU, pooling and the arg-max in
+/// registers: with one input channel (the first layer, whose 25-long inner
+/// dimension is too short for a GEMM to pay) when a pooled row fills a
+/// vector, with several when `c_out` is a multiple of 16 (AVX2) or 32
+/// (AVX-512). All other blocks, and f64, run on im2col + GEMM.
 pub fn forward<T: Float>(g: &Geometry, x: &[T], w: &[T], bias: &[T]) -> (Vec<T>, Vec<u8>) {
     let (per_in, per_out) = (g.in_len(), g.out_len());
     let mut out = vec![T::ZERO; g.batch * per_out];
@@ -319,12 +322,12 @@ pub fn forward<T: Float>(g: &Geometry, x: &[T], w: &[T], bias: &[T]) -> (Vec<T>,
         return (out, idx);
     }
     let init = || (Vec::new(), Vec::new());
-    if let Some((isa, x, w, bias, out)) = direct_f32(g, x, w, bias, &mut out) {
+    if let Some((plan, x, w, bias, out)) = direct_f32(g, x, w, bias, &mut out) {
         out.par_chunks_mut(per_out)
             .zip(idx.par_chunks_mut(per_out))
             .enumerate()
             .for_each(|(s, (o, i))| {
-                direct::forward_sample(isa, g, &x[s * per_in..][..per_in], w, bias, o, i)
+                direct::forward_sample(plan, g, &x[s * per_in..][..per_in], &w, bias, o, i)
             });
     } else if g.pool {
         out.par_chunks_mut(per_out)
@@ -615,20 +618,21 @@ mod tests {
         (out, idx)
     }
 
-    /// The direct kernel on `isa` for every sample.
+    /// The direct kernel `plan` for every sample.
     fn forward_direct(
-        isa: direct::Isa,
+        plan: direct::Plan,
         g: &Geometry,
         x: &[f32],
         w: &[f32],
         b: &[f32],
     ) -> (Vec<f32>, Vec<u8>) {
         let (per_in, per_out) = (g.in_len(), g.out_len());
+        let w = &direct::prepare_weights(plan, g, w);
         let mut out = vec![0f32; g.batch * per_out];
         let mut idx = vec![0u8; g.batch * per_out];
         for s in 0..g.batch {
             direct::forward_sample(
-                isa,
+                plan,
                 g,
                 &x[s * per_in..][..per_in],
                 w,
@@ -643,8 +647,8 @@ mod tests {
     /// Candle's stock conv2d + bias, ReLU and max_pool2d (the reference library).
     fn forward_candle(g: &Geometry, x: &[f32], w: &[f32], b: &[f32]) -> Vec<f32> {
         let dev = Device::Cpu;
-        let xt = Tensor::from_slice(x, (g.batch, 1, g.h, g.w), &dev).unwrap();
-        let wt = Tensor::from_slice(w, (g.c_out, 1, g.k, g.k), &dev).unwrap();
+        let xt = Tensor::from_slice(x, (g.batch, g.c_in, g.h, g.w), &dev).unwrap();
+        let wt = Tensor::from_slice(w, (g.c_out, g.c_in, g.k, g.k), &dev).unwrap();
         let bt = Tensor::from_slice(b, (1, g.c_out, 1, 1), &dev).unwrap();
         let mut y = xt
             .conv2d(&wt, 0, 1, 1, 1)
@@ -715,7 +719,7 @@ mod tests {
                 if ow < isa_lanes(isa) {
                     continue;
                 }
-                let (out, idx) = forward_direct(isa, &g, &x, &wt, &b);
+                let (out, idx) = forward_direct(direct::Plan::Rows(isa), &g, &x, &wt, &b);
                 let e = max_rel(&out, &gemm_out);
                 prop_assert!(e <= 1e-5, "{isa:?}: against the GEMM path, relative error {e}");
                 let e = max_rel(&out, &candle);
@@ -726,6 +730,46 @@ mod tests {
                     Some((o, i)) => prop_assert!(o == &out && i == &idx, "{:?} differs", isa),
                     None => first = Some((out, idx)),
                 }
+            }
+        }
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig { cases: 32, ..ProptestConfig::default() })]
+
+        #[test]
+        fn direct_channel_kernel_matches_gemm_path_and_candle(
+            seed in 0u64..10_000,
+            batch in 1usize..3,
+            c_in in 2usize..5,
+            blocks in 1usize..5,
+            k in 1usize..6,
+            extra_h in 0usize..12,
+            extra_w in 0usize..12,
+            relu in any::<bool>(),
+        ) {
+            // c_out 16 to 64 (whole AVX2 blocks; AVX-512 takes the multiples
+            // of 32); odd sizes, pooled rows of 1 to 7 blocks.
+            let (c_out, h, w) = (16 * blocks, k + 1 + extra_h, k + 1 + extra_w);
+            let g = Geometry { batch, c_in, h, w, c_out, k, relu, pool: true };
+            let mut rng = SeededRng::new(seed);
+            let mut rand = |n: usize| -> Vec<f32> {
+                (0..n).map(|_| rng.range_f64(-1.0, 1.0) as f32).collect()
+            };
+            let (x, wt, b) = (rand(batch * g.in_len()), rand(c_out * g.patch()), rand(c_out));
+            let (gemm_out, gemm_idx) = forward_gemm(&g, &x, &wt, &b);
+            let candle = forward_candle(&g, &x, &wt, &b);
+            prop_assert!(max_rel(&gemm_out, &candle) <= 1e-5);
+            for isa in isas() {
+                if c_out % (2 * isa_lanes(isa)) != 0 {
+                    continue;
+                }
+                let (out, idx) = forward_direct(direct::Plan::Channels(isa), &g, &x, &wt, &b);
+                let e = max_rel(&out, &gemm_out);
+                prop_assert!(e <= 1e-5, "{isa:?}: against the GEMM path, relative error {e}");
+                let e = max_rel(&out, &candle);
+                prop_assert!(e <= 1e-5, "{isa:?}: against Candle, relative error {e}");
+                prop_assert_eq!(&idx, &gemm_idx, "{:?}: pool positions", isa);
             }
         }
     }
@@ -762,8 +806,8 @@ mod tests {
         assert!(max_rel(&out, &gemm_out) <= 1e-5);
         assert_eq!(idx, gemm_idx);
         assert_eq!(
-            direct::plan(&g).is_some(),
-            direct::Isa::detect().is_some(),
+            direct::plan(&g),
+            direct::Isa::detect().map(direct::Plan::Rows),
             "the default first layer is one the direct kernel takes wherever it can run"
         );
     }

@@ -1,28 +1,34 @@
-//! Direct convolution for blocks with one input channel and 2 x 2 pooling
-//! (the first layer: `K = k k` is too short for a GEMM to pay), f32 only.
+//! Direct convolutions for pooled blocks (f32), with bias, ReLU, 2 x 2 max
+//! pooling and the arg-max applied to the accumulators before anything is
+//! stored, so the un-pooled conv output never reaches memory.
 //!
-//! Vectorised along the conv output columns: for each pool row (two conv
-//! rows), each tile of `2 L` conv columns (`L` pooled outputs, `L` the SIMD
-//! width) and each group of `C` output channels, the `2 x 2 x C` accumulator
-//! vectors stay in registers while the `k + 1` input rows the pool row needs
-//! are streamed from L1 (one sample's input is a few tens of KiB); each
+//! [`Plan::Rows`], for one input channel (the first layer: `K = k k` is too
+//! short for a GEMM to pay), is vectorised along the conv output columns:
+//! for each pool row (two conv rows), each tile of `2 L` conv columns (`L`
+//! pooled outputs, `L` the SIMD width) and each group of `C` output
+//! channels, the `2 x 2 x C` accumulator vectors stay in registers while the
+//! `k + 1` input rows the pool row needs are streamed from L1; each
 //! unaligned input vector feeds `2 C` or `4 C` fused multiply-adds with
-//! broadcast weights. Bias, ReLU, 2 x 2 max pooling and the arg-max are
-//! applied to the accumulators before anything is stored, so the un-pooled
-//! conv output never reaches memory.
+//! broadcast weights. Pooling needs an even/odd split of the columns.
 //!
-//! Every output value is the sum of its `k k` products, accumulated with
-//! fused multiply-adds in row-major kernel order, whichever tile and
-//! instruction set computes it: a last tile that overlaps the one before it
-//! rewrites identical values, and AVX-512 and AVX2 give identical results.
-//! Against the GEMM path (another summation order) they differ by float
-//! rounding. Pooling picks the first maximum in row-major block order and
-//! ReLU maps values below zero to zero, exactly as the GEMM path's epilogue
-//! does.
+//! [`Plan::Channels`], for several input channels, puts `2 L` output
+//! channels in two vectors and keeps the four pixels of `P` pool blocks in
+//! registers: per tap, two weight vectors (weights transposed to
+//! `(c_in, k, k, c_out)`) and one broadcast input value per pixel. The four
+//! pixels of a block are separate registers, so pooling is lane-wise; each
+//! pooled vector is stored channel by channel.
 //!
-//! The path is taken when the CPU has AVX-512F (16 lanes) or AVX2 + FMA
-//! (8 lanes), checked at run time, and the pooled width is at least one
-//! vector; otherwise the caller uses the im2col + GEMM path.
+//! Every output value is the sum of its `c_in k k` products, accumulated
+//! with fused multiply-adds in (channel, kernel row, kernel column) order,
+//! whichever tile computes it: a last tile that overlaps the one before it
+//! rewrites identical values. Against the GEMM path (its own summation
+//! order) results differ by float rounding (tested). Pooling picks the
+//! first maximum in row-major block order and ReLU maps values below zero to
+//! zero, exactly as the GEMM path's epilogue does.
+//!
+//! A kernel is taken when the CPU has AVX-512F (16 lanes) or AVX2 + FMA
+//! (8 lanes), checked at run time, and the block fits it (see [`plan`]);
+//! otherwise the caller uses the im2col + GEMM path.
 
 use super::conv::Geometry;
 
@@ -65,26 +71,67 @@ impl Isa {
     }
 }
 
-/// The instruction set to run `g` on with the direct kernel, or `None` when
-/// the block is not one it handles (more than one input channel, no pooling,
-/// a pooled row narrower than a vector, or no supported instruction set).
-pub(crate) fn plan(g: &Geometry) -> Option<Isa> {
-    if g.c_in != 1 || !g.pool || g.c_out == 0 {
+/// Which direct kernel runs a block, on which instruction set.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) enum Plan {
+    /// One input channel: conv columns in the vector lanes.
+    Rows(Isa),
+    /// Several input channels: output channels in the vector lanes
+    /// (`c_out` a multiple of 32 on AVX-512, of 16 on AVX2).
+    Channels(Isa),
+}
+
+/// Output channels per pass of the channel kernel.
+fn channel_block(isa: Isa) -> usize {
+    2 * isa.lanes()
+}
+
+/// The direct kernel for `g`, or `None` when the block is not one they
+/// handle (no pooling; one input channel and a pooled row narrower than a
+/// vector; several input channels and `c_out` not a multiple of the
+/// channel block; or no supported instruction set).
+pub(crate) fn plan(g: &Geometry) -> Option<Plan> {
+    if !g.pool || g.c_out == 0 {
         return None;
     }
     let isa = Isa::detect()?;
     let (oh, ow) = g.out_hw();
-    (oh > 0 && ow >= isa.lanes()).then_some(isa)
+    if oh == 0 || ow == 0 {
+        return None;
+    }
+    if g.c_in == 1 {
+        (ow >= isa.lanes()).then_some(Plan::Rows(isa))
+    } else {
+        (g.c_out.is_multiple_of(channel_block(isa))).then_some(Plan::Channels(isa))
+    }
+}
+
+/// The weights as `plan` reads them: `(c_out, c_in, k, k)` as given for
+/// [`Plan::Rows`], transposed to `(c_in, k, k, c_out)` for [`Plan::Channels`].
+pub(crate) fn prepare_weights(plan: Plan, g: &Geometry, w: &[f32]) -> Vec<f32> {
+    match plan {
+        Plan::Rows(_) => w.to_vec(),
+        Plan::Channels(_) => {
+            let kk = g.patch();
+            let mut t = vec![0f32; w.len()];
+            for (m, row) in w.chunks_exact(kk).enumerate() {
+                for (tap, v) in row.iter().enumerate() {
+                    t[tap * g.c_out + m] = *v;
+                }
+            }
+            t
+        }
+    }
 }
 
 /// One sample's forward pass: `out` is `c_out x oh x ow`, `idx` the pool
-/// arg-max of each output (0-3, row-major in the block).
+/// arg-max of each output (0-3, row-major in the block); `w` as
+/// [`prepare_weights`] returns it.
 ///
 /// # Panics
-/// When the slices' lengths do not match `g`, or `isa` does not fit `g`
-/// (see [`plan`]).
+/// When the slices' lengths do not match `g`, or `plan` does not fit `g`.
 pub(crate) fn forward_sample(
-    isa: Isa,
+    plan: Plan,
     g: &Geometry,
     x: &[f32],
     w: &[f32],
@@ -93,19 +140,26 @@ pub(crate) fn forward_sample(
     idx: &mut [u8],
 ) {
     let (oh, ow) = g.out_hw();
-    assert!(g.c_in == 1 && g.pool && oh > 0 && ow >= isa.lanes());
+    assert!(g.pool && oh > 0 && ow > 0);
     assert_eq!(x.len(), g.in_len(), "input sample");
     assert_eq!(w.len(), g.c_out * g.patch(), "weights");
     assert_eq!(bias.len(), g.c_out, "bias");
     assert_eq!(out.len(), g.out_len(), "output sample");
     assert_eq!(idx.len(), g.out_len(), "pool indices");
-    match isa {
-        // SAFETY: `plan`/`detect` found the CPU feature; the shapes were checked above.
+    match plan {
+        Plan::Rows(isa) => assert!(g.c_in == 1 && ow >= isa.lanes()),
+        Plan::Channels(isa) => assert!(g.c_out.is_multiple_of(channel_block(isa))),
+    }
+    // SAFETY: `plan`/`detect` found the CPU feature; the shapes were checked above.
+    match plan {
         #[cfg(target_arch = "x86_64")]
-        Isa::Avx512 => unsafe { x86::sample_avx512(g, x, w, bias, out, idx) },
-        // SAFETY: as above.
+        Plan::Rows(Isa::Avx512) => unsafe { x86::sample_avx512(g, x, w, bias, out, idx) },
         #[cfg(target_arch = "x86_64")]
-        Isa::Avx2 => unsafe { x86::sample_avx2(g, x, w, bias, out, idx) },
+        Plan::Rows(Isa::Avx2) => unsafe { x86::sample_avx2(g, x, w, bias, out, idx) },
+        #[cfg(target_arch = "x86_64")]
+        Plan::Channels(Isa::Avx512) => unsafe { x86::channels_avx512(g, x, w, bias, out, idx) },
+        #[cfg(target_arch = "x86_64")]
+        Plan::Channels(Isa::Avx2) => unsafe { x86::channels_avx2(g, x, w, bias, out, idx) },
     }
 }
 
@@ -138,6 +192,9 @@ mod x86 {
             out: *mut f32,
             idx: *mut u8,
         );
+        /// Pools lane by lane the four positions of 2 x 2 blocks, in
+        /// row-major block order, as [`Lanes::pool_store`] does (bias per lane).
+        unsafe fn pool4(block: [Self; 4], bias: Self, relu: bool, out: *mut f32, idx: *mut u8);
     }
 
     #[derive(Clone, Copy)]
@@ -186,6 +243,21 @@ mod x86 {
             };
             let (t0, t1) = split(top);
             let (b0, b1) = split(bottom);
+            // SAFETY: forwarded from the caller.
+            unsafe {
+                Self::pool4(
+                    [t0, t1, b0, b1].map(Self),
+                    Self::splat(bias),
+                    relu,
+                    out,
+                    idx,
+                )
+            }
+        }
+        #[inline]
+        #[target_feature(enable = "avx512f")]
+        unsafe fn pool4(block: [Self; 4], bias: Self, relu: bool, out: *mut f32, idx: *mut u8) {
+            let [t0, t1, b0, b1] = block.map(|v| v.0);
             let i = _mm512_set1_epi32;
             let mt = _mm512_cmp_ps_mask::<_CMP_GT_OQ>(t1, t0);
             let top_max = _mm512_mask_blend_ps(mt, t0, t1);
@@ -196,7 +268,7 @@ mod x86 {
             let m = _mm512_cmp_ps_mask::<_CMP_GT_OQ>(bottom_max, top_max);
             let best = _mm512_mask_blend_ps(m, top_max, bottom_max);
             let at = _mm512_mask_blend_epi32(m, top_at, bottom_at);
-            let mut v = _mm512_add_ps(best, _mm512_set1_ps(bias));
+            let mut v = _mm512_add_ps(best, bias.0);
             if relu {
                 let zero = _mm512_setzero_ps();
                 v = _mm512_mask_blend_ps(_mm512_cmp_ps_mask::<_CMP_LT_OQ>(v, zero), v, zero);
@@ -257,6 +329,21 @@ mod x86 {
             };
             let (t0, t1) = split(top);
             let (b0, b1) = split(bottom);
+            // SAFETY: forwarded from the caller.
+            unsafe {
+                Self::pool4(
+                    [t0, t1, b0, b1].map(Self),
+                    Self::splat(bias),
+                    relu,
+                    out,
+                    idx,
+                )
+            }
+        }
+        #[inline]
+        #[target_feature(enable = "avx2,fma")]
+        unsafe fn pool4(block: [Self; 4], bias: Self, relu: bool, out: *mut f32, idx: *mut u8) {
+            let [t0, t1, b0, b1] = block.map(|v| v.0);
             let f = _mm256_set1_ps;
             let mt = _mm256_cmp_ps::<_CMP_GT_OQ>(t1, t0);
             let top_max = _mm256_blendv_ps(t0, t1, mt);
@@ -267,7 +354,7 @@ mod x86 {
             let m = _mm256_cmp_ps::<_CMP_GT_OQ>(bottom_max, top_max);
             let best = _mm256_blendv_ps(top_max, bottom_max, m);
             let at = _mm256_cvttps_epi32(_mm256_blendv_ps(top_at, bottom_at, m));
-            let mut v = _mm256_add_ps(best, f(bias));
+            let mut v = _mm256_add_ps(best, bias.0);
             if relu {
                 let zero = _mm256_setzero_ps();
                 v = _mm256_blendv_ps(v, zero, _mm256_cmp_ps::<_CMP_LT_OQ>(v, zero));
@@ -377,6 +464,138 @@ mod x86 {
                 }
             }
         }
+    }
+
+    /// One `2 x 2 P`-pixel strip (pool blocks `pc .. pc + P` of pool row
+    /// `pr`) of output channels `m0 .. m0 + CV L`: accumulators per pixel
+    /// and channel vector, weights `wt` as `(c_in, k, k, c_out)`.
+    ///
+    /// # Safety
+    /// As [`sample_channels`]; `pc + P <= ow` and `m0 + CV L <= c_out`.
+    #[inline(always)]
+    #[allow(clippy::too_many_arguments)]
+    unsafe fn strip<V: Lanes, const CV: usize, const P: usize>(
+        g: &Geometry,
+        x: *const f32,
+        wt: *const f32,
+        bias: &[V; CV],
+        out: *mut f32,
+        idx: *mut u8,
+        (pr, pc, m0): (usize, usize, usize),
+    ) {
+        let (oh, ow) = g.out_hw();
+        let (k, width, c_out) = (g.k, g.w, g.c_out);
+        // SAFETY (pointer arithmetic): rows read are 2 pr + 1 + ky <= h - 1,
+        // columns 2 (pc + p) + 1 + kx <= 2 ow + k - 2 <= w - 1; weights
+        // ((ci k + ky) k + kx) c_out + m0 + CV L <= c_in k k c_out; outputs
+        // m oh ow + pr ow + pc + p < c_out oh ow.
+        unsafe {
+            let mut acc = [[[V::zero(); CV]; 4]; P];
+            for ci in 0..g.c_in {
+                for ky in 0..k {
+                    let upper = x.add((ci * g.h + 2 * pr + ky) * width + 2 * pc);
+                    let lower = upper.add(width);
+                    let wrow = wt.add((ci * k + ky) * k * c_out + m0);
+                    for kx in 0..k {
+                        let wv: [V; CV] =
+                            std::array::from_fn(|v| V::load(wrow.add(kx * c_out + v * V::L)));
+                        for (p, a) in acc.iter_mut().enumerate() {
+                            for (d, ad) in a.iter_mut().enumerate() {
+                                let src = if d < 2 { upper } else { lower };
+                                let xb = V::splat(*src.add(2 * p + (d & 1) + kx));
+                                for (av, wvv) in ad.iter_mut().zip(&wv) {
+                                    *av = V::fma(*wvv, xb, *av);
+                                }
+                            }
+                        }
+                    }
+                }
+            }
+            let (mut vals, mut ats) = ([0f32; 16], [0u8; 16]);
+            for (p, a) in acc.iter().enumerate() {
+                for (v, b) in bias.iter().enumerate() {
+                    let block = [a[0][v], a[1][v], a[2][v], a[3][v]];
+                    V::pool4(block, *b, g.relu, vals.as_mut_ptr(), ats.as_mut_ptr());
+                    for lane in 0..V::L {
+                        let at = ((m0 + v * V::L + lane) * oh + pr) * ow + pc + p;
+                        *out.add(at) = vals[lane];
+                        *idx.add(at) = ats[lane];
+                    }
+                }
+            }
+        }
+    }
+
+    /// One sample with the output channels in the vector lanes: `CV L`
+    /// channels per pass, `P` pool blocks per strip (the row's remainder one
+    /// at a time); `wt` is the weight tensor as `(c_in, k, k, c_out)`.
+    ///
+    /// # Safety
+    /// The CPU has `V`'s instruction set, the slices match `g`, `g.pool`,
+    /// `CV L` divides `c_out` and `V::L <= 16`.
+    #[inline(always)]
+    unsafe fn sample_channels<V: Lanes, const CV: usize, const P: usize>(
+        g: &Geometry,
+        x: &[f32],
+        wt: &[f32],
+        bias: &[f32],
+        out: &mut [f32],
+        idx: &mut [u8],
+    ) {
+        let (oh, ow) = g.out_hw();
+        let (xp, wp) = (x.as_ptr(), wt.as_ptr());
+        let (op, ip) = (out.as_mut_ptr(), idx.as_mut_ptr());
+        for m0 in (0..g.c_out).step_by(CV * V::L) {
+            // SAFETY: m0 + CV L <= c_out = bias.len(); the rest as documented.
+            unsafe {
+                let b: [V; CV] = std::array::from_fn(|v| V::load(bias.as_ptr().add(m0 + v * V::L)));
+                for pr in 0..oh {
+                    let mut pc = 0;
+                    while pc + P <= ow {
+                        strip::<V, CV, P>(g, xp, wp, &b, op, ip, (pr, pc, m0));
+                        pc += P;
+                    }
+                    while pc < ow {
+                        strip::<V, CV, 1>(g, xp, wp, &b, op, ip, (pr, pc, m0));
+                        pc += 1;
+                    }
+                }
+            }
+        }
+    }
+
+    /// [`sample_channels`] on AVX-512F: 32 channels per pass, 2 pool blocks per strip.
+    ///
+    /// # Safety
+    /// The CPU has AVX-512F; the conditions of [`sample_channels`] with `CV L = 32`.
+    #[target_feature(enable = "avx512f")]
+    pub(super) unsafe fn channels_avx512(
+        g: &Geometry,
+        x: &[f32],
+        wt: &[f32],
+        bias: &[f32],
+        out: &mut [f32],
+        idx: &mut [u8],
+    ) {
+        // SAFETY: forwarded from the caller.
+        unsafe { sample_channels::<V512, 2, 2>(g, x, wt, bias, out, idx) }
+    }
+
+    /// [`sample_channels`] on AVX2 + FMA: 16 channels per pass, 1 pool block per strip.
+    ///
+    /// # Safety
+    /// The CPU has AVX2 and FMA; the conditions of [`sample_channels`] with `CV L = 16`.
+    #[target_feature(enable = "avx2,fma")]
+    pub(super) unsafe fn channels_avx2(
+        g: &Geometry,
+        x: &[f32],
+        wt: &[f32],
+        bias: &[f32],
+        out: &mut [f32],
+        idx: &mut [u8],
+    ) {
+        // SAFETY: forwarded from the caller.
+        unsafe { sample_channels::<V256, 2, 1>(g, x, wt, bias, out, idx) }
     }
 
     /// [`sample`] on AVX-512F, 4 channels per pass (1 when fewer).

@@ -9,10 +9,11 @@
 //!   positions, then runs one GEMM per band for the weight gradient
 //!   (accumulated over the batch in fixed groups of [`conv::GROUP`] samples)
 //!   and, only when the input needs a gradient, a GEMM + col2im for it.
-//!   The forward of a block with one input channel and pooling (the first
-//!   layer) runs instead as a direct convolution in AVX-512 or AVX2 + FMA
-//!   (detected at run time) with bias, ReLU, pooling and arg-max applied in
-//!   registers, so the un-pooled output is never stored.
+//!   In f32 the forward of a pooled block runs instead as a direct
+//!   convolution in AVX-512 or AVX2 + FMA (detected at run time) with bias,
+//!   ReLU, pooling and arg-max applied in registers, so the un-pooled output
+//!   is never stored: conv columns in the vector lanes for one input channel
+//!   (the first layer), output channels in the lanes for several.
 //! - [`head`]: the dense layers as convolutions over a feature map, evaluated
 //!   only at chosen cells (the score map's blank-paper skipping).
 //!
