@@ -201,6 +201,26 @@ fn draw_panel<DB: DrawingBackend>(
     if several {
         let (x0, y0) = chart.backend_coord(&(0.03, 0.30));
         let line_h = sz(18.0, s) as i32;
+        // A paper-white box under the legend keeps it readable where curves pass.
+        let chars = panel
+            .series
+            .iter()
+            .map(|x| x.name.chars().count())
+            .max()
+            .unwrap_or(0);
+        let pad = sz(5.0, s) as i32;
+        let top = y0 - line_h * (panel.series.len() as i32 - 1) - line_h / 2 - pad;
+        let right = x0 + sz(34.0 + 6.6 * chars as f64, s) as i32 + pad;
+        root.draw(&Rectangle::new(
+            [(x0 - pad, top), (right, y0 + line_h / 2 + pad)],
+            WHITE.mix(0.9).filled(),
+        ))
+        .map_err(pe)?;
+        root.draw(&Rectangle::new(
+            [(x0 - pad, top), (right, y0 + line_h / 2 + pad)],
+            RGBColor(0xbb, 0xbb, 0xbb).stroke_width(sz(1.0, s)),
+        ))
+        .map_err(pe)?;
         for (i, series) in panel.series.iter().enumerate() {
             let (color, mark, dash) = series_style(i);
             let y = y0 - line_h * (panel.series.len() as i32 - 1 - i as i32);
