@@ -7,7 +7,7 @@
 //! when the challenger is better or not worse, [`exit::REJECTED`] when it is
 //! worse beyond the margin on any class.
 
-use crate::cmd::eval::{args_from, build_record, write_folder};
+use crate::cmd::eval::{evaluate_model, run_stamp};
 use crate::context::{Ctx, UsageError, usage};
 use crate::exit;
 use anyhow::Context as _;
@@ -25,7 +25,7 @@ use symtrust_eval::record::{
 };
 use symtrust_eval::sheet_eval::{prepare_sheets, sheet_outcomes};
 use symtrust_labels::atomic::write_atomic;
-use symtrust_labels::clock::{current_user, now_rfc3339};
+use symtrust_labels::clock::now_rfc3339;
 use symtrust_labels::site::Site;
 
 /// How a class's AP-difference interval is judged.
@@ -37,6 +37,15 @@ pub enum RuleArg {
     /// Fail a class only when the data show it loses more than the margin
     /// (upper end < -margin).
     NoSignificantLoss,
+}
+
+impl From<RuleArg> for VerdictRule {
+    fn from(r: RuleArg) -> Self {
+        match r {
+            RuleArg::NonInferiority => VerdictRule::NonInferiority,
+            RuleArg::NoSignificantLoss => VerdictRule::NoSignificantLoss,
+        }
+    }
 }
 
 /// Which AP definition is compared.
@@ -107,13 +116,7 @@ fn side(
         ));
     }
     ctx.say(format!("evaluating the {name} {}", dir.display()));
-    let eval_dir = out.join(name);
-    let dir_s = dir.to_string_lossy();
-    let eval_s = eval_dir.to_string_lossy();
-    let args = args_from(&["--model", &dir_s, "--out", &eval_s])?;
-    let record = build_record(ctx, site, &args)?;
-    write_folder(&eval_dir, &record)?;
-    Ok(record)
+    evaluate_model(ctx, site, dir, &out.join(name), &[])
 }
 
 /// Refuses two evaluations of different sheets, labels or matching rules.
@@ -290,19 +293,6 @@ pub fn compare_records(
     Ok(record)
 }
 
-/// The run stamp of a command that started at `started`.
-pub fn stamp_now(started: (String, Instant)) -> RunStamp {
-    RunStamp {
-        tool_version: env!("CARGO_PKG_VERSION").to_string(),
-        created: started.0,
-        command_line: std::env::args().collect(),
-        host: crate::cmd::eval::host_name(),
-        user: current_user(),
-        threads: rayon::current_num_threads(),
-        seconds: started.1.elapsed().as_secs_f64(),
-    }
-}
-
 /// Writes `comparison.json` into `out` atomically.
 pub fn write_comparison(out: &Path, record: &ComparisonRecord) -> anyhow::Result<()> {
     std::fs::create_dir_all(out).with_context(|| format!("creating {}", out.display()))?;
@@ -329,10 +319,7 @@ pub fn run(ctx: &Ctx, args: &CompareArgs) -> anyhow::Result<u8> {
         seed: args.seed.unwrap_or(site.config.seed),
         level: args.level,
     };
-    let rule = match args.rule {
-        RuleArg::NonInferiority => VerdictRule::NonInferiority,
-        RuleArg::NoSignificantLoss => VerdictRule::NoSignificantLoss,
-    };
+    let rule = VerdictRule::from(args.rule);
     let ap_kind = match args.ap {
         ApArg::AllPoint => ApKind::AllPoint,
         ApArg::Points101 => ApKind::Points101,
@@ -344,7 +331,7 @@ pub fn run(ctx: &Ctx, args: &CompareArgs) -> anyhow::Result<u8> {
         ap_kind,
         args.margin,
         rule,
-        stamp_now(started),
+        run_stamp(started),
     )?;
     write_comparison(&args.out, &record)?;
     if ctx.json {

@@ -10,7 +10,7 @@
 //! 5. write one report with the three evaluations side by side, and print the
 //!    trust statement and the report's path.
 
-use crate::cmd::eval::{args_from as eval_args, build_record, render_report, write_folder};
+use crate::cmd::eval::{evaluate_model, render_report};
 use crate::cmd::train::{args_from as train_args, train_model};
 use crate::context::{Ctx, usage};
 use crate::exit;
@@ -57,13 +57,9 @@ fn evaluate(
     sheets: &[String],
     out: &Path,
 ) -> anyhow::Result<EvaluationRecord> {
-    let model_s = model.to_string_lossy();
-    let out_s = out.to_string_lossy();
-    let mut a: Vec<&str> = vec!["--model", &model_s, "--out", &out_s, "--sheets"];
-    a.extend(sheets.iter().map(String::as_str));
-    let record = build_record(ctx, site, &eval_args(&a)?)?;
-    write_folder(out, &record)?;
-    Ok(record)
+    let mut extra = vec!["--sheets"];
+    extra.extend(sheets.iter().map(String::as_str));
+    evaluate_model(ctx, site, model, out, &extra)
 }
 
 fn crops(ctx: &Ctx, site: &Site, seed: u64) -> anyhow::Result<String> {

@@ -613,6 +613,37 @@ pub fn write_folder(out: &Path, record: &EvaluationRecord) -> anyhow::Result<()>
     Ok(())
 }
 
+/// The run stamp of a command that started at `started` (RFC 3339, clock).
+pub fn run_stamp(started: (String, Instant)) -> RunStamp {
+    RunStamp {
+        tool_version: env!("CARGO_PKG_VERSION").to_string(),
+        created: started.0,
+        command_line: std::env::args().collect(),
+        host: host_name(),
+        user: current_user(),
+        threads: rayon::current_num_threads(),
+        seconds: started.1.elapsed().as_secs_f64(),
+    }
+}
+
+/// Evaluates model folder `model` with `eval`'s defaults plus `extra` flags
+/// and writes the evaluation folder `out`.
+pub fn evaluate_model(
+    ctx: &Ctx,
+    site: &Site,
+    model: &Path,
+    out: &Path,
+    extra: &[&str],
+) -> anyhow::Result<EvaluationRecord> {
+    let model_s = model.to_string_lossy();
+    let out_s = out.to_string_lossy();
+    let mut a: Vec<&str> = vec!["--model", &model_s, "--out", &out_s];
+    a.extend_from_slice(extra);
+    let record = build_record(ctx, site, &args_from(&a)?)?;
+    write_folder(out, &record)?;
+    Ok(record)
+}
+
 /// Host name of this machine, for run stamps.
 pub fn host_name() -> String {
     std::fs::read_to_string("/etc/hostname")
@@ -665,15 +696,7 @@ fn assemble(
         schema_version: METRICS_SCHEMA_VERSION,
         trust_statement: statement,
         caution: CAUTION.to_string(),
-        stamp: RunStamp {
-            tool_version: env!("CARGO_PKG_VERSION").to_string(),
-            created: started.0,
-            command_line: std::env::args().collect(),
-            host: host_name(),
-            user: current_user(),
-            threads: rayon::current_num_threads(),
-            seconds: started.1.elapsed().as_secs_f64(),
-        },
+        stamp: run_stamp(started),
         detector: info,
         classes,
         held_out: site.config.held_out.clone(),

@@ -19,8 +19,8 @@
 //! during step 6 is finished by the next run from its decision file. No model
 //! folder is ever deleted.
 
-use crate::cmd::compare::{RuleArg, compare_records, stamp_now, write_comparison};
-use crate::cmd::eval::{args_from as eval_args, build_record, render_report, write_folder};
+use crate::cmd::compare::{RuleArg, compare_records, write_comparison};
+use crate::cmd::eval::{evaluate_model, render_report, run_stamp};
 use crate::cmd::train::{args_from as train_args, train_model};
 use crate::context::{Ctx, usage};
 use crate::exit;
@@ -311,22 +311,6 @@ fn mine_hard_negatives(
     Ok(n)
 }
 
-fn evaluate(
-    ctx: &Ctx,
-    site: &Site,
-    model: &Path,
-    out: &Path,
-    resamples: usize,
-) -> anyhow::Result<EvaluationRecord> {
-    let model_s = model.to_string_lossy();
-    let out_s = out.to_string_lossy();
-    let n = resamples.to_string();
-    let args = eval_args(&["--model", &model_s, "--out", &out_s, "--resamples", &n])?;
-    let record = build_record(ctx, site, &args)?;
-    write_folder(out, &record)?;
-    Ok(record)
-}
-
 /// Runs one nightly job.
 pub fn run(ctx: &Ctx, args: &NightlyArgs) -> anyhow::Result<u8> {
     let ctx = match &args.log {
@@ -438,12 +422,13 @@ pub fn run(ctx: &Ctx, args: &NightlyArgs) -> anyhow::Result<u8> {
     ctx.say(format!("trained challenger {}", card.id));
     checkpoint("trained");
 
-    let challenger_eval = evaluate(
+    let resamples = args.resamples.to_string();
+    let challenger_eval = evaluate_model(
         ctx,
         &site,
         &challenger_dir,
         &dir.join("eval-challenger"),
-        args.resamples,
+        &["--resamples", &resamples],
     )?;
     let (promote, reason, champion_eval) = match &champion_dir {
         None => (
@@ -452,17 +437,19 @@ pub fn run(ctx: &Ctx, args: &NightlyArgs) -> anyhow::Result<u8> {
             None,
         ),
         Some(m) => {
-            let champion_eval =
-                evaluate(ctx, &site, m, &dir.join("eval-champion"), args.resamples)?;
+            let champion_eval = evaluate_model(
+                ctx,
+                &site,
+                m,
+                &dir.join("eval-champion"),
+                &["--resamples", &resamples],
+            )?;
             let boot = BootstrapConfig {
                 resamples: args.resamples,
                 seed: site.config.seed,
                 level: 0.95,
             };
-            let rule = match args.rule {
-                RuleArg::NonInferiority => VerdictRule::NonInferiority,
-                RuleArg::NoSignificantLoss => VerdictRule::NoSignificantLoss,
-            };
+            let rule = VerdictRule::from(args.rule);
             let cmp = compare_records(
                 &champion_eval,
                 &challenger_eval,
@@ -470,7 +457,7 @@ pub fn run(ctx: &Ctx, args: &NightlyArgs) -> anyhow::Result<u8> {
                 ApKind::AllPoint,
                 args.margin,
                 rule,
-                stamp_now(started.clone()),
+                run_stamp(started.clone()),
             )?;
             write_comparison(&dir, &cmp)?;
             (
