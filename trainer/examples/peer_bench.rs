@@ -4,7 +4,7 @@
 //! cargo run --release -p symtrust-trainer --example peer_bench -- train  WINDOW BATCH STEPS
 //! cargo run --release -p symtrust-trainer --example peer_bench -- sweep  WIDTH HEIGHT STRIDE SUBSET
 //! cargo run --release -p symtrust-trainer --example peer_bench -- memory WIDTH HEIGHT STRIDE
-//! cargo run --release -p symtrust-trainer --example peer_bench -- kernels
+//! cargo run --release -p symtrust-trainer --example peer_bench -- kernels [ONLY]
 //! cargo run --release -p symtrust-trainer --example peer_bench -- plant DPI STRIDE
 //! ```
 //!
@@ -16,7 +16,8 @@
 //! classification of `SUBSET` windows of the same grid, and extrapolates the
 //! per-window time to the whole grid; `memory` runs one sweep and reports the
 //! process's peak resident memory (VmHWM); `kernels` prints the measured FP32
-//! peak (FMA chains) and each convolution kernel's GFLOP/s at batch 64;
+//! peak (FMA chains) and each convolution kernel's GFLOP/s at batch 64 (with
+//! `ONLY`, just the kernels whose name starts with it, e.g. `conv1 forward`);
 //! `plant` sweeps an A1 sheet of the synthetic plant densely and with
 //! blank-paper skipping (threshold from windows centred on its symbols, as
 //! training would choose it) and counts the symbols whose nearest grid window
@@ -262,7 +263,7 @@ fn main() {
                 peak_rss_kib() as f64 / 1024.0
             );
         }
-        Some("kernels") => kernels(threads),
+        Some("kernels") => kernels(threads, args.get(2).map_or("", String::as_str)),
         Some("plant") => plant(&args, threads),
         _ => {
             arg(&args, usize::MAX);
@@ -374,10 +375,10 @@ fn fma_peak(threads: usize) -> (f64, &'static str) {
 }
 
 /// GFLOP/s of each convolution kernel of the default network at batch 64,
-/// and of the score map's dense head on one 64 x 64-cell tile.
-fn kernels(threads: usize) {
+/// and of the score map's dense head on one 64 x 64-cell tile; only those
+/// whose name starts with `only`.
+fn kernels(threads: usize, only: &str) {
     use symtrust_trainer::kernels::conv::{Geometry, backward, forward};
-    use symtrust_trainer::kernels::head::DenseHead;
     let (peak, isa) = fma_peak(threads);
     let mut rng = SeededRng::new(7);
     let mut rand = |n: usize| -> Vec<f32> { (0..n).map(|_| rng.uniform() as f32 - 0.3).collect() };
@@ -395,6 +396,12 @@ fn kernels(threads: usize) {
             relu: true,
             pool: true,
         };
+        side = g.out_hw().0;
+        let name = |what: &str| format!("conv{} {what}", i + 1);
+        let wanted = |what: &str| name(what).starts_with(only);
+        if !wanted("forward") && !wanted("backward") {
+            continue;
+        }
         let (x, w, b) = (
             rand(g.batch * g.in_len()),
             rand(g.c_out * g.patch()),
@@ -402,19 +409,24 @@ fn kernels(threads: usize) {
         );
         let (out, idx) = forward(&g, &x, &w, &b);
         let grad = rand(out.len());
-        let fwd = best_of(15, || {
-            std::hint::black_box(forward(&g, &x, &w, &b));
+        let fwd = wanted("forward").then(|| {
+            best_of(15, || {
+                std::hint::black_box(forward(&g, &x, &w, &b));
+            })
         });
         let want_dx = i > 0;
-        let bwd = best_of(8, || {
-            std::hint::black_box(backward(&g, &x, &w, &out, &idx, &grad, want_dx));
+        let bwd = wanted("backward").then(|| {
+            best_of(8, || {
+                std::hint::black_box(backward(&g, &x, &w, &out, &idx, &grad, want_dx));
+            })
         });
         let flops = 2.0 * g.forward_macs() as f64;
         let bwd_flops = flops * if want_dx { 2.0 } else { 1.0 };
         for (what, secs, fl) in [("forward", fwd, flops), ("backward", bwd, bwd_flops)] {
+            let Some(secs) = secs else { continue };
             rows.push(format!(
-                "{{\"kernel\":\"conv{} {what}\",\"shape\":\"{}x{}x{}x{} k{} -> {}\",\"ms\":{:.2},\"gflops\":{:.1},\"peak_share\":{:.3}}}",
-                i + 1,
+                "{{\"kernel\":\"{}\",\"shape\":\"{}x{}x{}x{} k{} -> {}\",\"ms\":{:.2},\"gflops\":{:.1},\"peak_share\":{:.3}}}",
+                name(what),
                 g.batch,
                 g.c_in,
                 g.h,
@@ -426,10 +438,26 @@ fn kernels(threads: usize) {
                 fl / secs / 1e9 / peak
             ));
         }
-        side = g.out_hw().0;
     }
-    // Dense head on one tile: a 73 x 73 feature map gives 64 x 64 cells; the
-    // score map runs one tile per thread, so the rate is for all threads.
+    if "dense head".starts_with(only) {
+        rows.push(dense_head(&arch, threads, peak, &mut rand));
+    }
+    println!(
+        "{{\"mode\":\"kernels\",\"threads\":{threads},\"peak_gflops\":{peak:.1},\"peak_isa\":\"{isa}\",\"kernels\":[{}]}}",
+        rows.join(",")
+    );
+}
+
+/// The JSON row of the score map's dense head on one 64 x 64-cell tile per
+/// thread: a 73 x 73 feature map gives 64 x 64 cells, and the score map runs
+/// one tile per thread, so the rate is for all threads.
+fn dense_head(
+    arch: &Architecture,
+    threads: usize,
+    peak: f64,
+    rand: &mut impl FnMut(usize) -> Vec<f32>,
+) -> String {
+    use symtrust_trainer::kernels::head::DenseHead;
     let f = arch.feature_side();
     let c = arch.conv_channels[arch.layers() - 1];
     let (fh, fw) = (64 + f - 1, 64 + f - 1);
@@ -459,16 +487,12 @@ fn kernels(threads: usize) {
         * 2.0
         * cells.len() as f64
         * (c * f * f * arch.hidden + arch.hidden * arch.classes) as f64;
-    rows.push(format!(
+    format!(
         "{{\"kernel\":\"dense head\",\"shape\":\"{threads} tiles of 64x64 cells, {c}x{f}x{f} -> {} -> {}\",\"ms\":{:.2},\"gflops\":{:.1},\"peak_share\":{:.3}}}",
         arch.hidden,
         arch.classes,
         secs * 1e3,
         flops / secs / 1e9,
         flops / secs / 1e9 / peak
-    ));
-    println!(
-        "{{\"mode\":\"kernels\",\"threads\":{threads},\"peak_gflops\":{peak:.1},\"peak_isa\":\"{isa}\",\"kernels\":[{}]}}",
-        rows.join(",")
-    );
+    )
 }

@@ -3,13 +3,16 @@
 //! stored, so the un-pooled conv output never reaches memory.
 //!
 //! [`Plan::Rows`], for one input channel (the first layer: `K = k k` is too
-//! short for a GEMM to pay), is vectorised along the conv output columns:
-//! for each pool row (two conv rows), each tile of `2 L` conv columns (`L`
-//! pooled outputs, `L` the SIMD width) and each group of `C` output
-//! channels, the `2 x 2 x C` accumulator vectors stay in registers while the
-//! `k + 1` input rows the pool row needs are streamed from L1; each
-//! unaligned input vector feeds `2 C` or `4 C` fused multiply-adds with
-//! broadcast weights. Pooling needs an even/odd split of the columns.
+//! short for a GEMM to pay), is vectorised along the pooled output columns.
+//! Each input row is first split into its even and odd columns (a scratch
+//! copy of the sample, a few vector shuffles per row), so the conv values of
+//! the even and the odd columns of `L` pool blocks (`L` the SIMD width) are
+//! each one plain load-and-FMA away and the pooling needs no shuffles. For
+//! each pool row (two conv rows), each tile of `L` pooled columns and each
+//! group of `C` output channels, the `2 x 2 x C` accumulator vectors (conv
+//! row, column parity, channel) stay in registers; per kernel tap the four
+//! input vectors they need are loaded once and each broadcast weight feeds
+//! four fused multiply-adds.
 //!
 //! [`Plan::Channels`], for several input channels, puts `2 L` output
 //! channels in two vectors and keeps the four pixels of `P` pool blocks in
@@ -31,6 +34,7 @@
 //! otherwise the caller uses the im2col + GEMM path.
 
 use super::conv::Geometry;
+use std::mem::MaybeUninit;
 
 /// An instruction set the direct kernel runs on.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -126,18 +130,22 @@ pub(crate) fn prepare_weights(plan: Plan, g: &Geometry, w: &[f32]) -> Vec<f32> {
 
 /// One sample's forward pass: `out` is `c_out x oh x ow`, `idx` the pool
 /// arg-max of each output (0-3, row-major in the block); `w` as
-/// [`prepare_weights`] returns it.
+/// [`prepare_weights`] returns it. Every element of `out` and `idx` is
+/// written (they may start uninitialised); `scratch` is working memory that
+/// callers keep between samples.
 ///
 /// # Panics
 /// When the slices' lengths do not match `g`, or `plan` does not fit `g`.
+#[allow(clippy::too_many_arguments)]
 pub(crate) fn forward_sample(
     plan: Plan,
     g: &Geometry,
     x: &[f32],
     w: &[f32],
     bias: &[f32],
-    out: &mut [f32],
-    idx: &mut [u8],
+    out: &mut [MaybeUninit<f32>],
+    idx: &mut [MaybeUninit<u8>],
+    scratch: &mut Vec<f32>,
 ) {
     let (oh, ow) = g.out_hw();
     assert!(g.pool && oh > 0 && ow > 0);
@@ -150,12 +158,29 @@ pub(crate) fn forward_sample(
         Plan::Rows(isa) => assert!(g.c_in == 1 && ow >= isa.lanes()),
         Plan::Channels(isa) => assert!(g.c_out.is_multiple_of(channel_block(isa))),
     }
-    // SAFETY: `plan`/`detect` found the CPU feature; the shapes were checked above.
+    let (out, idx) = (
+        out.as_mut_ptr().cast::<f32>(),
+        idx.as_mut_ptr().cast::<u8>(),
+    );
+    // SAFETY: `plan`/`detect` found the CPU feature; the shapes were checked
+    // above; the kernels only write through `out` and `idx`.
     match plan {
         #[cfg(target_arch = "x86_64")]
-        Plan::Rows(Isa::Avx512) => unsafe { x86::sample_avx512(g, x, w, bias, out, idx) },
-        #[cfg(target_arch = "x86_64")]
-        Plan::Rows(Isa::Avx2) => unsafe { x86::sample_avx2(g, x, w, bias, out, idx) },
+        Plan::Rows(isa) => {
+            let s = x86::split_stride(g.w);
+            let need = g.h * 2 * s + x86::ALIGN;
+            if scratch.len() < need {
+                scratch.resize(need, 0.0);
+            }
+            let ptr = scratch.as_mut_ptr();
+            // Rows start on 64-byte boundaries (aligned vector loads where the
+            // tile starts); at most ALIGN - 1 elements are skipped.
+            let base = unsafe { ptr.add(ptr.align_offset(64).min(x86::ALIGN - 1)) };
+            match isa {
+                Isa::Avx512 => unsafe { x86::sample_avx512(g, x, w, bias, out, idx, base) },
+                Isa::Avx2 => unsafe { x86::sample_avx2(g, x, w, bias, out, idx, base) },
+            }
+        }
         #[cfg(target_arch = "x86_64")]
         Plan::Channels(Isa::Avx512) => unsafe { x86::channels_avx512(g, x, w, bias, out, idx) },
         #[cfg(target_arch = "x86_64")]
@@ -180,20 +205,14 @@ mod x86 {
         unsafe fn load(p: *const f32) -> Self;
         /// `a b + c`.
         unsafe fn fma(a: Self, b: Self, c: Self) -> Self;
-        /// Pools the conv values `top` (two vectors: `2 L` columns of the
-        /// upper row) and `bottom` into `L` outputs: first maximum of each
-        /// 2 x 2 block plus `bias`, ReLU when asked; stores the values at
-        /// `out` and the block positions at `idx`.
-        unsafe fn pool_store(
-            top: [Self; 2],
-            bottom: [Self; 2],
-            bias: f32,
-            relu: bool,
-            out: *mut f32,
-            idx: *mut u8,
-        );
-        /// Pools lane by lane the four positions of 2 x 2 blocks, in
-        /// row-major block order, as [`Lanes::pool_store`] does (bias per lane).
+        /// Stores all lanes at `p` (unaligned).
+        unsafe fn store(p: *mut f32, v: Self);
+        /// The even and the odd elements of the `2 L` values `a` then `b`.
+        unsafe fn split(a: Self, b: Self) -> (Self, Self);
+        /// Pools lane by lane the four positions of 2 x 2 blocks, given in
+        /// row-major block order: first maximum of each block plus `bias`,
+        /// ReLU when asked; stores `L` values at `out` and the block
+        /// positions (0-3) at `idx`.
         unsafe fn pool4(block: [Self; 4], bias: Self, relu: bool, out: *mut f32, idx: *mut u8);
     }
 
@@ -225,34 +244,19 @@ mod x86 {
         }
         #[inline]
         #[target_feature(enable = "avx512f")]
-        unsafe fn pool_store(
-            top: [Self; 2],
-            bottom: [Self; 2],
-            bias: f32,
-            relu: bool,
-            out: *mut f32,
-            idx: *mut u8,
-        ) {
+        unsafe fn store(p: *mut f32, v: Self) {
+            // SAFETY: the caller keeps p..p + 16 inside its slice.
+            unsafe { _mm512_storeu_ps(p, v.0) }
+        }
+        #[inline]
+        #[target_feature(enable = "avx512f")]
+        unsafe fn split(a: Self, b: Self) -> (Self, Self) {
             let even = _mm512_setr_epi32(0, 2, 4, 6, 8, 10, 12, 14, 16, 18, 20, 22, 24, 26, 28, 30);
             let odd = _mm512_setr_epi32(1, 3, 5, 7, 9, 11, 13, 15, 17, 19, 21, 23, 25, 27, 29, 31);
-            let split = |v: [Self; 2]| {
-                (
-                    _mm512_permutex2var_ps(v[0].0, even, v[1].0),
-                    _mm512_permutex2var_ps(v[0].0, odd, v[1].0),
-                )
-            };
-            let (t0, t1) = split(top);
-            let (b0, b1) = split(bottom);
-            // SAFETY: forwarded from the caller.
-            unsafe {
-                Self::pool4(
-                    [t0, t1, b0, b1].map(Self),
-                    Self::splat(bias),
-                    relu,
-                    out,
-                    idx,
-                )
-            }
+            (
+                Self(_mm512_permutex2var_ps(a.0, even, b.0)),
+                Self(_mm512_permutex2var_ps(a.0, odd, b.0)),
+            )
         }
         #[inline]
         #[target_feature(enable = "avx512f")]
@@ -309,36 +313,21 @@ mod x86 {
         }
         #[inline]
         #[target_feature(enable = "avx2,fma")]
-        unsafe fn pool_store(
-            top: [Self; 2],
-            bottom: [Self; 2],
-            bias: f32,
-            relu: bool,
-            out: *mut f32,
-            idx: *mut u8,
-        ) {
+        unsafe fn store(p: *mut f32, v: Self) {
+            // SAFETY: the caller keeps p..p + 8 inside its slice.
+            unsafe { _mm256_storeu_ps(p, v.0) }
+        }
+        #[inline]
+        #[target_feature(enable = "avx2,fma")]
+        unsafe fn split(a: Self, b: Self) -> (Self, Self) {
             // Within each 128-bit half, shuffle picks a0 a2 b0 b2 (even) or
             // a1 a3 b1 b3 (odd); the 64-bit permute puts the halves in order.
-            let split = |v: [Self; 2]| {
-                let e = _mm256_shuffle_ps::<0b10_00_10_00>(v[0].0, v[1].0);
-                let o = _mm256_shuffle_ps::<0b11_01_11_01>(v[0].0, v[1].0);
-                let fix = |x: __m256| {
-                    _mm256_castpd_ps(_mm256_permute4x64_pd::<0b11_01_10_00>(_mm256_castps_pd(x)))
-                };
-                (fix(e), fix(o))
+            let e = _mm256_shuffle_ps::<0b10_00_10_00>(a.0, b.0);
+            let o = _mm256_shuffle_ps::<0b11_01_11_01>(a.0, b.0);
+            let fix = |x: __m256| {
+                _mm256_castpd_ps(_mm256_permute4x64_pd::<0b11_01_10_00>(_mm256_castps_pd(x)))
             };
-            let (t0, t1) = split(top);
-            let (b0, b1) = split(bottom);
-            // SAFETY: forwarded from the caller.
-            unsafe {
-                Self::pool4(
-                    [t0, t1, b0, b1].map(Self),
-                    Self::splat(bias),
-                    relu,
-                    out,
-                    idx,
-                )
-            }
+            (Self(fix(e)), Self(fix(o)))
         }
         #[inline]
         #[target_feature(enable = "avx2,fma")]
@@ -372,93 +361,135 @@ mod x86 {
         }
     }
 
-    /// Adds one input row's products to the accumulators of the pool row's
-    /// upper conv row (`UPPER`, kernel row at `w_upper`) and lower conv row
-    /// (`LOWER`, kernel row at `w_lower`); channel `c`'s weights are `c kk` further.
+    /// Elements per row half in the split copy of a sample: the even (or
+    /// odd) columns of a row of `w`, rounded up to whole 64-byte lines.
+    pub(super) fn split_stride(w: usize) -> usize {
+        w.div_ceil(2).next_multiple_of(ALIGN)
+    }
+
+    /// f32 elements per 64-byte line.
+    pub(super) const ALIGN: usize = 16;
+
+    /// Copies the `h x w` sample `x` to `dst`, each row split into its even
+    /// columns (at `2 r s`) and its odd columns (at `2 r s + s`), `s` =
+    /// [`split_stride`]`(w)`.
     ///
     /// # Safety
-    /// `row .. row + k - 1 + 2 L` and the `C` kernel rows lie in their slices.
+    /// The CPU has `V`'s instruction set; `x` holds `h w` values; `dst`
+    /// points to `2 h s` writable values.
     #[inline(always)]
-    unsafe fn taps<V: Lanes, const C: usize, const UPPER: bool, const LOWER: bool>(
-        acc: &mut [[[V; 2]; 2]; C],
-        row: *const f32,
-        k: usize,
-        kk: usize,
-        w_upper: *const f32,
-        w_lower: *const f32,
-    ) {
-        // SAFETY: forwarded from the caller.
+    unsafe fn split_rows<V: Lanes>(x: &[f32], h: usize, w: usize, dst: *mut f32) {
+        let s = split_stride(w);
+        let l = V::L;
+        assert!(x.len() >= h * w);
+        // SAFETY: reads stay below r w + w, writes below 2 r s + s + ceil(w / 2) <= 2 (r + 1) s.
         unsafe {
-            for kx in 0..k {
-                let x0 = V::load(row.add(kx));
-                let x1 = V::load(row.add(kx + V::L));
-                for (c, a) in acc.iter_mut().enumerate() {
-                    if UPPER {
-                        let wv = V::splat(*w_upper.add(c * kk + kx));
-                        a[0][0] = V::fma(wv, x0, a[0][0]);
-                        a[0][1] = V::fma(wv, x1, a[0][1]);
+            for r in 0..h {
+                let src = x.as_ptr().add(r * w);
+                let even = dst.add(2 * r * s);
+                let odd = even.add(s);
+                let mut j = 0;
+                while 2 * j + 2 * l <= w {
+                    let (e, o) = V::split(V::load(src.add(2 * j)), V::load(src.add(2 * j + l)));
+                    V::store(even.add(j), e);
+                    V::store(odd.add(j), o);
+                    j += l;
+                }
+                while 2 * j < w {
+                    *even.add(j) = *src.add(2 * j);
+                    if 2 * j + 1 < w {
+                        *odd.add(j) = *src.add(2 * j + 1);
                     }
-                    if LOWER {
-                        let wv = V::splat(*w_lower.add(c * kk + kx));
-                        a[1][0] = V::fma(wv, x0, a[1][0]);
-                        a[1][1] = V::fma(wv, x1, a[1][1]);
-                    }
+                    j += 1;
                 }
             }
         }
     }
 
     /// One sample, `C` output channels per pass (the last pass overlaps the
-    /// one before when `C` does not divide `c_out`).
+    /// one before when `C` does not divide `c_out`), on the split copy of
+    /// the sample at `split` (see [`split_rows`]); `K` is the kernel side,
+    /// or 0 to read it from `g`.
+    ///
+    /// Conv column `2 p + d` (`d` the parity) with kernel column `kx` reads
+    /// input column `2 p + d + kx`: the even half at `p + (d + kx) / 2` when
+    /// `d + kx` is even, the odd half at `p + (d + kx - 1) / 2` when odd.
     ///
     /// # Safety
     /// The CPU has `V`'s instruction set, the slices match `g`, `g.c_in == 1`,
-    /// `g.pool`, `c_out >= C` and the pooled width is at least `V::L`.
+    /// `g.pool`, `c_out >= C`, `K` is 0 or `g.k`, the pooled width is at least `V::L`, `out`
+    /// and `idx` point to `c_out oh ow` writable values and `split` to
+    /// `2 h split_stride(w)` writable values.
     #[inline(always)]
-    unsafe fn sample<V: Lanes, const C: usize>(
+    #[allow(clippy::too_many_arguments)]
+    unsafe fn sample<V: Lanes, const C: usize, const K: usize>(
         g: &Geometry,
         x: &[f32],
         w: &[f32],
         bias: &[f32],
-        out: &mut [f32],
-        idx: &mut [u8],
+        op: *mut f32,
+        ip: *mut u8,
+        split: *mut f32,
     ) {
         let (oh, ow) = g.out_hw();
-        let (k, l, width) = (g.k, V::L, g.w);
+        // A kernel side known at compile time unrolls the tap loop (no parity
+        // tests, input vectors shared by neighbouring taps).
+        let k = if K > 0 { K } else { g.k };
+        let l = V::L;
         let kk = k * k;
-        let (xp, wp) = (x.as_ptr(), w.as_ptr());
-        let (op, ip) = (out.as_mut_ptr(), idx.as_mut_ptr());
+        let s = split_stride(g.w);
+        let wp = w.as_ptr();
         let groups = g.c_out.div_ceil(C);
         let tiles = ow.div_ceil(l);
+        // SAFETY: forwarded from the caller.
+        unsafe { split_rows::<V>(x, g.h, g.w, split) };
         for pr in 0..oh {
             for tile in 0..tiles {
                 // The last tile ends at the row's end (ow >= L), overlapping.
                 let pc = (tile * l).min(ow - l);
-                let col = 2 * pc;
                 for group in 0..groups {
                     let c0 = (group * C).min(g.c_out - C);
-                    // SAFETY (all pointer arithmetic below): rows read are
-                    // 2 pr + iy <= 2 oh + k - 1 <= h - 1, columns
-                    // col + kx + 2 L - 1 <= 2 ow + k - 2 <= w - 1; weights
-                    // (c0 + c) k k + ky k + kx < c_out k k; outputs
-                    // (c0 + c) oh ow + pr ow + pc + L <= c_out oh ow.
+                    // SAFETY (all pointer arithmetic below): input rows read are
+                    // 2 pr + 1 + ky <= 2 oh + k - 2 <= h - 1; an even-half
+                    // read at pc + L - 1 + (kx + 1) / 2 is input column at most
+                    // 2 (ow - 1) + 1 + kx <= w - 1, so within ceil(w / 2) <= s,
+                    // likewise for the odd half; weights (c0 + c) k k + ky k +
+                    // kx < c_out k k; outputs (c0 + c) oh ow + pr ow + pc + L
+                    // <= c_out oh ow.
                     unsafe {
                         let mut acc = [[[V::zero(); 2]; 2]; C];
                         let wg = wp.add(c0 * kk);
-                        let row = |iy: usize| xp.add((2 * pr + iy) * width + col);
-                        // Input row iy feeds conv row 0 with kernel row iy and
-                        // conv row 1 with kernel row iy - 1.
-                        taps::<V, C, true, false>(&mut acc, row(0), k, kk, wg, wg);
-                        for iy in 1..k {
-                            let (w0, w1) = (wg.add(iy * k), wg.add((iy - 1) * k));
-                            taps::<V, C, true, true>(&mut acc, row(iy), k, kk, w0, w1);
+                        for ky in 0..k {
+                            let top = split.add((2 * pr + ky) * 2 * s + pc);
+                            let bottom = top.add(2 * s);
+                            let wrow = wg.add(ky * k);
+                            for kx in 0..k {
+                                // Offsets of the even and the odd conv column's input.
+                                let (at_even, at_odd) = if kx % 2 == 0 {
+                                    (kx / 2, s + kx / 2)
+                                } else {
+                                    (s + kx / 2, kx / 2 + 1)
+                                };
+                                let xin = [
+                                    V::load(top.add(at_even)),
+                                    V::load(top.add(at_odd)),
+                                    V::load(bottom.add(at_even)),
+                                    V::load(bottom.add(at_odd)),
+                                ];
+                                for (c, a) in acc.iter_mut().enumerate() {
+                                    let wv = V::splat(*wrow.add(c * kk + kx));
+                                    a[0][0] = V::fma(wv, xin[0], a[0][0]);
+                                    a[0][1] = V::fma(wv, xin[1], a[0][1]);
+                                    a[1][0] = V::fma(wv, xin[2], a[1][0]);
+                                    a[1][1] = V::fma(wv, xin[3], a[1][1]);
+                                }
+                            }
                         }
-                        let last = wg.add((k - 1) * k);
-                        taps::<V, C, false, true>(&mut acc, row(k), k, kk, last, last);
                         for (c, a) in acc.iter().enumerate() {
                             let m = c0 + c;
                             let at = (m * oh + pr) * ow + pc;
-                            V::pool_store(a[0], a[1], bias[m], g.relu, op.add(at), ip.add(at));
+                            let block = [a[0][0], a[0][1], a[1][0], a[1][1]];
+                            V::pool4(block, V::splat(bias[m]), g.relu, op.add(at), ip.add(at));
                         }
                     }
                 }
@@ -539,12 +570,11 @@ mod x86 {
         x: &[f32],
         wt: &[f32],
         bias: &[f32],
-        out: &mut [f32],
-        idx: &mut [u8],
+        op: *mut f32,
+        ip: *mut u8,
     ) {
         let (oh, ow) = g.out_hw();
         let (xp, wp) = (x.as_ptr(), wt.as_ptr());
-        let (op, ip) = (out.as_mut_ptr(), idx.as_mut_ptr());
         for m0 in (0..g.c_out).step_by(CV * V::L) {
             // SAFETY: m0 + CV L <= c_out = bias.len(); the rest as documented.
             unsafe {
@@ -574,8 +604,8 @@ mod x86 {
         x: &[f32],
         wt: &[f32],
         bias: &[f32],
-        out: &mut [f32],
-        idx: &mut [u8],
+        out: *mut f32,
+        idx: *mut u8,
     ) {
         // SAFETY: forwarded from the caller.
         unsafe { sample_channels::<V512, 2, 2>(g, x, wt, bias, out, idx) }
@@ -591,55 +621,63 @@ mod x86 {
         x: &[f32],
         wt: &[f32],
         bias: &[f32],
-        out: &mut [f32],
-        idx: &mut [u8],
+        out: *mut f32,
+        idx: *mut u8,
     ) {
         // SAFETY: forwarded from the caller.
         unsafe { sample_channels::<V256, 2, 1>(g, x, wt, bias, out, idx) }
     }
 
-    /// [`sample`] on AVX-512F, 4 channels per pass (1 when fewer).
+    /// [`sample`] on AVX-512F, 4 channels per pass (1 when fewer), unrolled
+    /// for kernel sides 5 and 3.
     ///
     /// # Safety
     /// The CPU has AVX-512F; the conditions of [`sample`] with `V::L = 16`.
     #[target_feature(enable = "avx512f")]
+    #[allow(clippy::too_many_arguments)]
     pub(super) unsafe fn sample_avx512(
         g: &Geometry,
         x: &[f32],
         w: &[f32],
         bias: &[f32],
-        out: &mut [f32],
-        idx: &mut [u8],
+        out: *mut f32,
+        idx: *mut u8,
+        split: *mut f32,
     ) {
         // SAFETY: forwarded from the caller.
         unsafe {
-            if g.c_out >= 4 {
-                sample::<V512, 4>(g, x, w, bias, out, idx)
-            } else {
-                sample::<V512, 1>(g, x, w, bias, out, idx)
+            match (g.c_out >= 4, g.k) {
+                (true, 5) => sample::<V512, 4, 5>(g, x, w, bias, out, idx, split),
+                (true, 3) => sample::<V512, 4, 3>(g, x, w, bias, out, idx, split),
+                (true, _) => sample::<V512, 4, 0>(g, x, w, bias, out, idx, split),
+                (false, _) => sample::<V512, 1, 0>(g, x, w, bias, out, idx, split),
             }
         }
     }
 
-    /// [`sample`] on AVX2 + FMA, 2 channels per pass (1 when fewer).
+    /// [`sample`] on AVX2 + FMA, 2 channels per pass (1 when fewer), unrolled
+    /// for kernel sides 5 and 3.
     ///
     /// # Safety
     /// The CPU has AVX2 and FMA; the conditions of [`sample`] with `V::L = 8`.
     #[target_feature(enable = "avx2,fma")]
+    #[allow(clippy::too_many_arguments)]
     pub(super) unsafe fn sample_avx2(
         g: &Geometry,
         x: &[f32],
         w: &[f32],
         bias: &[f32],
-        out: &mut [f32],
-        idx: &mut [u8],
+        out: *mut f32,
+        idx: *mut u8,
+        split: *mut f32,
     ) {
         // SAFETY: forwarded from the caller.
         unsafe {
-            if g.c_out >= 2 {
-                sample::<V256, 2>(g, x, w, bias, out, idx)
-            } else {
-                sample::<V256, 1>(g, x, w, bias, out, idx)
+            match (g.c_out >= 2, g.k) {
+                (true, 5) => sample::<V256, 2, 5>(g, x, w, bias, out, idx, split),
+                (true, 3) => sample::<V256, 2, 3>(g, x, w, bias, out, idx, split),
+                (true, _) => sample::<V256, 2, 0>(g, x, w, bias, out, idx, split),
+                (false, _) => sample::<V256, 1, 0>(g, x, w, bias, out, idx, split),
             }
         }
     }
