@@ -471,6 +471,70 @@ fn a_model_evaluation_is_complete_and_consistent() {
     assert_eq!(e["iou_sweep"].as_array().unwrap().len(), 9);
 }
 
+/// Platt scaling as the method defines it, `sigmoid(a * logit(s) + b)`, with
+/// the score clamped away from 0 and 1 so the logit is finite.
+fn platt(a: f64, b: f64, s: f64) -> f64 {
+    let s = s.clamp(1e-12, 1.0 - 1e-12);
+    1.0 / (1.0 + (-(a * (s / (1.0 - s)).ln() + b)).exp())
+}
+
+#[test]
+fn calibration_is_fitted_on_validation_sheets_and_judged_on_held_out_ones() {
+    let tmp = tempfile::tempdir().unwrap();
+    let model = trained_copy(tmp.path());
+    let m = model_eval(
+        tmp.path(),
+        &model,
+        "cal",
+        &["--calibrate", "--resamples", "50"],
+    );
+    let fit = &m["calibration_fit"];
+    let (a, b) = (
+        fit["scaling"]["a"].as_f64().unwrap(),
+        fit["scaling"]["b"].as_f64().unwrap(),
+    );
+    assert!(a.is_finite() && b.is_finite(), "{fit}");
+    // "Before" is the held-out calibration the sheet level reports.
+    assert_eq!(fit["held_out_raw"], m["sheet_level"]["calibration"]);
+    // Brier scores recomputed here from the match log: the mean of
+    // (p - y)^2 with y = 1 for a hit (the definition of the Brier score).
+    let dets = m["matches"]["detections"].as_array().unwrap();
+    assert!(!dets.is_empty());
+    let brier = |p: &dyn Fn(f64) -> f64| {
+        dets.iter()
+            .map(|d| {
+                let y = f64::from(u8::from(d["kind"] == "hit"));
+                (p(d["score"].as_f64().unwrap()) - y).powi(2)
+            })
+            .sum::<f64>()
+            / dets.len() as f64
+    };
+    close(&fit["held_out_raw"]["brier"], brier(&|s| s));
+    close(&fit["held_out_scaled"]["brier"], brier(&|s| platt(a, b, s)));
+    assert_eq!(
+        fit["held_out_scaled"]["n"].as_u64().unwrap(),
+        dets.len() as u64
+    );
+    // Without the flag no fit is made.
+    let plain = model_eval(tmp.path(), &model, "plain", &["--resamples", "50"]);
+    assert!(plain["calibration_fit"].is_null());
+    // A detections file has no validation sweep to fit on.
+    refused(
+        tmp.path(),
+        &[
+            "eval",
+            "--site",
+            "site",
+            "--detections",
+            "plain/detections.csv",
+            "--calibrate",
+            "--out",
+            "bad-ev",
+        ],
+        "--calibrate needs --model",
+    );
+}
+
 #[test]
 fn shards_merge_into_exactly_the_unsharded_figures() {
     let tmp = tempfile::tempdir().unwrap();

@@ -42,16 +42,18 @@ fn median_time(runs: usize, mut f: impl FnMut()) -> Duration {
     t[runs / 2]
 }
 
-/// Time this thread has spent on a CPU (Linux `/proc/thread-self/schedstat`,
-/// first field, nanoseconds): unlike wall time, it does not grow when other
-/// work on a shared machine takes the core.
-fn thread_cpu() -> Option<Duration> {
-    let s = std::fs::read_to_string("/proc/thread-self/schedstat").ok()?;
-    s.split_whitespace()
-        .next()?
-        .parse()
-        .ok()
-        .map(Duration::from_nanos)
+/// Time all threads of this process have spent on a CPU (the first field of
+/// each Linux `/proc/self/task/*/schedstat`, nanoseconds): unlike wall time, it
+/// does not grow when other work on a shared machine takes the cores. The
+/// evaluation's worker threads live in one pool for the whole process, so the
+/// difference of two readings is the work done in between.
+fn process_cpu() -> Option<Duration> {
+    let mut total = 0u64;
+    for task in std::fs::read_dir("/proc/self/task").ok()? {
+        let s = std::fs::read_to_string(task.ok()?.path().join("schedstat")).ok()?;
+        total += s.split_whitespace().next()?.parse::<u64>().ok()?;
+    }
+    Some(Duration::from_nanos(total))
 }
 
 /// Medians of wall time and on-CPU time over `runs` runs.
@@ -59,10 +61,10 @@ fn median_wall_and_cpu(runs: usize, mut f: impl FnMut()) -> (Duration, Option<Du
     let mut wall = Vec::with_capacity(runs);
     let mut cpu = Vec::with_capacity(runs);
     for _ in 0..runs {
-        let (s, c) = (Instant::now(), thread_cpu());
+        let (s, c) = (Instant::now(), process_cpu());
         f();
         wall.push(s.elapsed());
-        cpu.push(thread_cpu().zip(c).map(|(b, a)| b - a));
+        cpu.push(process_cpu().zip(c).map(|(b, a)| b - a));
     }
     wall.sort();
     cpu.sort();
@@ -344,6 +346,16 @@ fn main() {
     let (base, base_cpu) = median_wall_and_cpu(3, || {
         black_box(evaluate_sheets(&big, &names8, &no_bootstrap()).unwrap());
     });
+    // The same on one worker thread, as the peer of the parallel run.
+    let single = rayon::ThreadPoolBuilder::new()
+        .num_threads(1)
+        .build()
+        .expect("a one-thread pool");
+    let (one, one_cpu) = single.install(|| {
+        median_wall_and_cpu(3, || {
+            black_box(evaluate_sheets(&big, &names8, &no_bootstrap()).unwrap());
+        })
+    });
     println!(
         "evaluate_sheets, 1000 sheets, {n_dets} detections, {n_truths} symbols, no bootstrap: {base:?}"
     );
@@ -387,10 +399,11 @@ fn main() {
         &mut md,
         format!(
             "## Metrics kernels (`cargo bench -p symtrust-eval`)\n\n\
-         - command: `cargo bench -p symtrust-eval` (release profile, single thread)\n\
+         - command: `cargo bench -p symtrust-eval` (release profile; {} worker threads, `RAYON_NUM_THREADS` sets them)\n\
          - machine: {}, {} logical cores\n\
          - load average (1, 5, 15 min) before: {load_before}; after: {}\n\
          - figures: median of several runs (3 or 5; the default-1000 run once)\n",
+            rayon::current_num_threads(),
             cpu_model(),
             std::thread::available_parallelism().map_or(0, |n| n.get()),
             load_average()
@@ -407,10 +420,14 @@ fn main() {
          all-point and 101-point, F1-max, precision at recall and recall at precision, \
          the IoU sweep 0.1..0.9 which matches every sheet nine more times, the detection \
          confusion table, the per-sheet table, calibration).\n\n\
-         - without the bootstrap: **{:.3} s** wall, {} (goal: well under 1 s)\n\
-         - with the default 1000 resamples: **{:.2} s** wall, {}\n",
+         - without the bootstrap: **{:.3} s** wall, {} of all threads (goal: well under 1 s)\n\
+         - the same on one worker thread: {:.3} s wall, {} ({:.2}x the wall time above)\n\
+         - with the default 1000 resamples: **{:.2} s** wall, {} of all threads\n",
             secs(base),
             cpu_text(base_cpu),
+            secs(one),
+            cpu_text(one_cpu),
+            secs(one) / secs(base),
             secs(full),
             cpu_text(full_cpu)
         ),

@@ -26,11 +26,13 @@
 //! A class without ground truth on the sheets cannot be judged and is listed
 //! as such; it neither passes nor fails the challenger.
 
-use crate::ap::{ApFigures, mean_defined};
+use crate::ap::mean_defined;
 use crate::bootstrap::{BootstrapConfig, Interval, interval_from, resample_indices};
 use crate::error::{EvalError, Result, in_range};
-use crate::sheets::{SheetOutcomes, pooled_curve};
+use crate::ranking::{ApScratch, RankedFlags, Ranking, flat_true_positives, weights_of};
+use crate::sheets::SheetOutcomes;
 use crate::special::{binomial_half_cdf, chi2_sf_1dof};
+use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
 /// Which AP the comparison uses.
@@ -42,15 +44,6 @@ pub enum ApKind {
     AllPoint,
     /// 101-point (COCO).
     Points101,
-}
-
-impl ApKind {
-    fn pick(self, a: &ApFigures) -> Option<f64> {
-        match self {
-            ApKind::AllPoint => a.all_point,
-            ApKind::Points101 => a.points_101,
-        }
-    }
 }
 
 /// The AP difference of one class (or of the mAP).
@@ -79,17 +72,41 @@ pub struct PairedApComparison {
     pub map: ApDifference,
 }
 
+/// Per-class APs of `kind` over the sheets with `weights`, and their mean.
 fn aps(
-    s: &[SheetOutcomes],
-    idx: &[usize],
+    side: &Side,
+    weights: &[u32],
     n: usize,
     kind: ApKind,
+    s: &mut ApScratch,
 ) -> (Vec<Option<f64>>, Option<f64>) {
     let v: Vec<Option<f64>> = (0..n)
-        .map(|k| kind.pick(&ApFigures::of(&pooled_curve(s, idx, Some(k)))))
+        .map(|k| {
+            let (all_point, points_101) = side.ranking.ap_into(Some(k), &side.flags, weights, s);
+            match kind {
+                ApKind::AllPoint => all_point,
+                ApKind::Points101 => points_101,
+            }
+        })
         .collect();
     let m = mean_defined(v.iter().copied());
     (v, m)
+}
+
+/// One model's detections ranked once ([`crate::ranking`]): each replicate's
+/// pooled curve is then a walk with a weight per sheet, point for point the
+/// curve `pooled_curve` builds.
+struct Side {
+    ranking: Ranking,
+    flags: RankedFlags,
+}
+
+impl Side {
+    fn new(sheets: &[SheetOutcomes], n: usize) -> Self {
+        let ranking = Ranking::new(sheets, n);
+        let flags = ranking.flags(&flat_true_positives(sheets));
+        Self { ranking, flags }
+    }
 }
 
 fn diff(a: Option<f64>, b: Option<f64>) -> Option<f64> {
@@ -130,18 +147,29 @@ pub fn paired_bootstrap_ap(
         }
     }
     let draws = resample_indices(champion.len(), cfg)?;
-    let all: Vec<usize> = (0..champion.len()).collect();
-    let (a_cls, a_map) = aps(champion, &all, n, ap_kind);
-    let (b_cls, b_map) = aps(challenger, &all, n, ap_kind);
+    let (a, b) = (Side::new(champion, n), Side::new(challenger, n));
+    let mut scratch = ApScratch::default();
+    let ones = vec![1u32; champion.len()];
+    let (a_cls, a_map) = aps(&a, &ones, n, ap_kind, &mut scratch);
+    let (b_cls, b_map) = aps(&b, &ones, n, ap_kind, &mut scratch);
+    // Replicates run in parallel and land in draw order.
+    let replicates: Vec<(Vec<Option<f64>>, Option<f64>)> = draws
+        .par_iter()
+        .map_init(ApScratch::default, |s, idx| {
+            let w = weights_of(idx, champion.len());
+            let (ac, am) = aps(&a, &w, n, ap_kind, s);
+            let (bc, bm) = aps(&b, &w, n, ap_kind, s);
+            let cls = ac.into_iter().zip(bc).map(|(x, y)| diff(x, y)).collect();
+            (cls, diff(am, bm))
+        })
+        .collect();
     let mut reps_cls = vec![Vec::with_capacity(draws.len()); n];
     let mut reps_map = Vec::with_capacity(draws.len());
-    for idx in &draws {
-        let (ac, am) = aps(champion, idx, n, ap_kind);
-        let (bc, bm) = aps(challenger, idx, n, ap_kind);
-        for k in 0..n {
-            reps_cls[k].push(diff(ac[k], bc[k]));
+    for (cls, map) in replicates {
+        for (k, d) in cls.into_iter().enumerate() {
+            reps_cls[k].push(d);
         }
-        reps_map.push(diff(am, bm));
+        reps_map.push(map);
     }
     let per_class = (0..n)
         .map(|k| {
@@ -346,6 +374,106 @@ mod tests {
                     duplicate: false,
                 })
                 .collect(),
+        }
+    }
+
+    /// Both models' APs recomputed the plain way (pool the drawn sheets, sort,
+    /// build the curve) for every replicate of the same draws.
+    fn by_pooling(
+        a: &[SheetOutcomes],
+        b: &[SheetOutcomes],
+        n: usize,
+        kind: ApKind,
+        cfg: &BootstrapConfig,
+    ) -> (Vec<Vec<Option<f64>>>, Vec<Option<f64>>) {
+        use crate::ap::ApFigures;
+        use crate::sheets::pooled_curve;
+        let pick = |f: ApFigures| match kind {
+            ApKind::AllPoint => f.all_point,
+            ApKind::Points101 => f.points_101,
+        };
+        let aps = |s: &[SheetOutcomes], idx: &[usize]| {
+            let v: Vec<Option<f64>> = (0..n)
+                .map(|k| pick(ApFigures::of(&pooled_curve(s, idx, Some(k)))))
+                .collect();
+            let m = mean_defined(v.iter().copied());
+            (v, m)
+        };
+        let mut cls = vec![Vec::new(); n];
+        let mut map = Vec::new();
+        for idx in resample_indices(a.len(), cfg).unwrap() {
+            let ((ac, am), (bc, bm)) = (aps(a, &idx), aps(b, &idx));
+            for k in 0..n {
+                cls[k].push(diff(ac[k], bc[k]));
+            }
+            map.push(diff(am, bm));
+        }
+        (cls, map)
+    }
+
+    proptest::proptest! {
+        #[test]
+        fn same_intervals_as_pooling_every_replicate(
+            sheets in proptest::collection::vec(
+                (
+                    proptest::collection::vec((0usize..2, 0u8..6, proptest::bool::ANY, proptest::bool::ANY), 0..10),
+                    0u64..3,
+                    0u64..3,
+                ),
+                1..5,
+            ),
+            points_101 in proptest::bool::ANY,
+        ) {
+            // Coarse scores give ties within and across sheets; each side
+            // reads its own true-positive flag.
+            let side = |which: usize| -> Vec<SheetOutcomes> {
+                sheets
+                    .iter()
+                    .enumerate()
+                    .map(|(i, (o, x, y))| {
+                        let outcomes: Vec<Outcome> = o
+                            .iter()
+                            .map(|&(class, sc, t0, t1)| Outcome {
+                                class,
+                                score: f64::from(sc) / 5.0,
+                                true_positive: if which == 0 { t0 } else { t1 },
+                                duplicate: false,
+                            })
+                            .collect();
+                        let tp = |k: usize| outcomes.iter().filter(|o| o.class == k && o.true_positive).count() as u64;
+                        SheetOutcomes {
+                            sheet: format!("s{i}"),
+                            truths_per_class: vec![tp(0) + x, tp(1) + y],
+                            outcomes,
+                        }
+                    })
+                    .collect()
+            };
+            let (a, b) = (side(0), side(1));
+            let kind = if points_101 { ApKind::Points101 } else { ApKind::AllPoint };
+            let cfg = BootstrapConfig { resamples: 40, ..BootstrapConfig::default() };
+            let names = ["valve".to_string(), "pump".to_string()];
+            let got = paired_bootstrap_ap(&a, &b, &names, kind, &cfg).unwrap();
+            let (cls, map) = by_pooling(&a, &b, 2, kind, &cfg);
+            let all: Vec<usize> = (0..a.len()).collect();
+            let want_map = {
+                let (mut one, mut two) = (Vec::new(), Vec::new());
+                for k in 0..2 {
+                    let f = |s: &[SheetOutcomes]| crate::ap::ApFigures::of(&crate::sheets::pooled_curve(s, &all, Some(k)));
+                    let (fa, fb) = (f(&a), f(&b));
+                    one.push(if points_101 { fa.points_101 } else { fa.all_point });
+                    two.push(if points_101 { fb.points_101 } else { fb.all_point });
+                }
+                diff(mean_defined(one), mean_defined(two))
+            };
+            proptest::prop_assert_eq!(
+                got.map.difference,
+                interval_from(want_map, &map, cfg.level).unwrap()
+            );
+            for (ia, reps) in got.per_class.iter().zip(&cls) {
+                let want = interval_from(diff(ia.champion, ia.challenger), reps, cfg.level).unwrap();
+                proptest::prop_assert_eq!(ia.difference, want);
+            }
         }
     }
 

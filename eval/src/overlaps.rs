@@ -34,6 +34,13 @@ struct FirstPass {
     truth_taken: Vec<bool>,
 }
 
+/// A truth of the detection's own class with positive IoU.
+#[derive(Clone, Copy)]
+struct SamePair {
+    truth: u32,
+    iou: f64,
+}
+
 /// The overlaps of one sheet (see the module comment).
 pub(crate) struct SheetOverlaps {
     order: Vec<u32>,
@@ -41,6 +48,11 @@ pub(crate) struct SheetOverlaps {
     start: Vec<u32>,
     /// Ascending truth within each detection's run.
     pairs: Vec<Pair>,
+    /// The same-class pairs alone, detection by detection in score order, so
+    /// that the greedy pass repeated at every IoU threshold reads them in
+    /// sequence; `same_start[r]` starts the run of the detection ranked `r`.
+    same_start: Vec<u32>,
+    same: Vec<SamePair>,
     n_truths: usize,
 }
 
@@ -68,10 +80,25 @@ impl SheetOverlaps {
             }
             start.push(pairs.len() as u32);
         }
+        let order: Vec<u32> = score_order(&p.dets).into_iter().map(|d| d as u32).collect();
+        let mut same_start = Vec::with_capacity(order.len() + 1);
+        let mut same = Vec::with_capacity(pairs.len());
+        same_start.push(0);
+        for &d in &order {
+            let d = d as usize;
+            let run = &pairs[start[d] as usize..start[d + 1] as usize];
+            same.extend(run.iter().filter(|q| q.same_class).map(|q| SamePair {
+                truth: q.truth,
+                iou: q.iou,
+            }));
+            same_start.push(same.len() as u32);
+        }
         Self {
-            order: score_order(&p.dets).into_iter().map(|d| d as u32).collect(),
+            order,
             start,
             pairs,
+            same_start,
+            same,
             n_truths: p.truths.len(),
         }
     }
@@ -87,12 +114,13 @@ impl SheetOverlaps {
             det: vec![(None, false); self.order.len()],
             truth_taken: vec![false; self.n_truths],
         };
-        for &d in &self.order[..prefix] {
+        for (r, &d) in self.order[..prefix].iter().enumerate() {
             let d = d as usize;
             let mut best: Option<(u32, f64)> = None;
             let mut fits_taken = false;
-            for q in self.run(d) {
-                if !q.same_class || q.iou < min_iou {
+            let run = &self.same[self.same_start[r] as usize..self.same_start[r + 1] as usize];
+            for q in run {
+                if q.iou < min_iou {
                     continue;
                 }
                 if f.truth_taken[q.truth as usize] {

@@ -16,6 +16,7 @@
 use crate::ap::{all_point_of, envelope_in_place, points_101_of};
 use crate::pr::{PrCurve, PrPoint};
 use crate::sheets::SheetOutcomes;
+use rayon::prelude::*;
 
 #[derive(Clone, Copy)]
 struct Entry {
@@ -66,7 +67,7 @@ impl Ranking {
         }
         // Descending `total_cmp` order, ties in flat order: the order of a
         // stable sort, by an unstable sort on a total key (faster).
-        all.sort_unstable_by_key(|e| (std::cmp::Reverse(total_order_key(e.score)), e.flat));
+        all.par_sort_unstable_by_key(|e| (std::cmp::Reverse(total_order_key(e.score)), e.flat));
         let mut by_class = vec![Vec::new(); n_classes];
         for e in &all {
             by_class[classes[e.flat as usize]].push(*e);
@@ -86,7 +87,7 @@ impl Ranking {
     /// The outcomes `true_positive` (one per detection, in flat order) laid
     /// out in ranking order, so that a walk reads them in sequence.
     pub(crate) fn flags(&self, true_positive: &[bool]) -> RankedFlags {
-        let gather = |list: &[Entry]| {
+        let gather = |list: &Vec<Entry>| -> Vec<u32> {
             (0..list.len())
                 .map(|i| {
                     let e = list[i];
@@ -95,10 +96,11 @@ impl Ranking {
                 })
                 .collect()
         };
-        RankedFlags {
-            all: gather(&self.all),
-            by_class: self.by_class.iter().map(|l| gather(l)).collect(),
-        }
+        let (all, by_class) = rayon::join(
+            || gather(&self.all),
+            || self.by_class.par_iter().map(gather).collect(),
+        );
+        RankedFlags { all, by_class }
     }
 
     /// Writes into `out` the PR curve of class `class` (all classes when
@@ -173,20 +175,35 @@ impl Ranking {
         }
         let (mut tp, mut fp, mut in_run) = (0u64, 0u64, 0u64);
         let mut len = 0;
-        for &p in packed {
-            let w = u64::from(weights[(p >> 2) as usize]);
-            let hit = u64::from(p >> 1 & 1);
-            tp += w * hit;
-            fp += w * (1 - hit);
-            in_run += w;
-            if p & 1 != 0 {
-                // A run of equal scores ends: a point when any of it was drawn.
-                if in_run > 0 {
+        if weights.iter().all(|&w| w == 1) {
+            // Every sheet once (the main figures and the IoU sweep): the same
+            // counts without reading a weight per detection.
+            for &p in packed {
+                let hit = u64::from(p >> 1 & 1);
+                tp += hit;
+                fp += 1 - hit;
+                if p & 1 != 0 {
                     s.precision[len] = tp as f64 / (tp + fp) as f64;
                     s.recall[len] = tp as f64 / n_positives as f64;
                     len += 1;
                 }
-                in_run = 0;
+            }
+        } else {
+            for &p in packed {
+                let w = u64::from(weights[(p >> 2) as usize]);
+                let hit = u64::from(p >> 1 & 1);
+                tp += w * hit;
+                fp += w * (1 - hit);
+                in_run += w;
+                if p & 1 != 0 {
+                    // A run of equal scores ends: a point when any of it was drawn.
+                    if in_run > 0 {
+                        s.precision[len] = tp as f64 / (tp + fp) as f64;
+                        s.recall[len] = tp as f64 / n_positives as f64;
+                        len += 1;
+                    }
+                    in_run = 0;
+                }
             }
         }
         let env = &mut s.precision[..len];
@@ -303,6 +320,16 @@ mod tests {
             let r = Ranking::new(&sheets, 2);
             let tp = r.flags(&flat_true_positives(&sheets));
             let w = weights_of(&idx, n);
+            // Every sheet once takes the unweighted path of `ap_into`.
+            let all: Vec<usize> = (0..n).collect();
+            let ones = weights_of(&all, n);
+            for class in [None, Some(0), Some(1)] {
+                let want = pooled_curve(&sheets, &all, class);
+                let (a, p) = r.ap_into(class, &tp, &ones, &mut ApScratch::default());
+                let exact = |x: Option<f64>| x.map(f64::to_bits);
+                prop_assert_eq!(exact(a), exact(crate::ap::ap_all_point(&want)));
+                prop_assert_eq!(exact(p), exact(crate::ap::ap_101(&want)));
+            }
             for class in [None, Some(0), Some(1)] {
                 let got = r.curve(class, &tp, &w);
                 let want = pooled_curve(&sheets, &idx, class);

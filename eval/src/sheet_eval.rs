@@ -39,6 +39,7 @@ use crate::operating::{OperatingPoint, f1_max, precision_at_recall, recall_at_pr
 use crate::overlaps::SheetOverlaps;
 use crate::pr::{PrCurve, f1};
 use crate::ranking::{ApScratch, RankedFlags, Ranking, flat_true_positives, weights_of};
+use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
 pub use crate::sheets::{
@@ -480,15 +481,18 @@ pub fn evaluate_sheets(
     // the greedy pass ([`crate::overlaps`]), and every pooled curve is one walk
     // over one ranking ([`crate::ranking`]), point for point the curve that
     // `pooled_curve` builds.
-    let overlaps: Vec<SheetOverlaps> = prepared.iter().map(SheetOverlaps::new).collect();
+    // Sheets, classes, IoU thresholds and bootstrap replicates are independent
+    // and run in parallel; each result lands in its input-order slot, so every
+    // figure is the same whatever the thread count.
+    let overlaps: Vec<SheetOverlaps> = prepared.par_iter().map(SheetOverlaps::new).collect();
     let outcomes: Vec<SheetOutcomes> = match cfg.criterion {
         MatchCriterion::Iou { min_iou } => prepared
-            .iter()
+            .par_iter()
             .zip(&overlaps)
             .map(|(p, o)| o.outcomes(p, n, min_iou))
             .collect(),
         MatchCriterion::CentreDistance { .. } => prepared
-            .iter()
+            .par_iter()
             .map(|p| sheet_outcomes(p, n, &cfg.criterion))
             .collect(),
     };
@@ -496,33 +500,45 @@ pub fn evaluate_sheets(
     let true_positive = ranking.flags(&flat_true_positives(&outcomes));
     let ones = vec![1u32; outcomes.len()];
 
-    let mut per_class = Vec::with_capacity(n);
-    for (k, name) in class_names.iter().enumerate() {
-        per_class.push(ClassSummary {
-            class: name.clone(),
-            figures: summarise(ranking.curve(Some(k), &true_positive, &ones), cfg)?,
-        });
-    }
+    let per_class = class_names
+        .par_iter()
+        .enumerate()
+        .map(|(k, name)| {
+            Ok(ClassSummary {
+                class: name.clone(),
+                figures: summarise(ranking.curve(Some(k), &true_positive, &ones), cfg)?,
+            })
+        })
+        .collect::<Vec<Result<ClassSummary>>>()
+        .into_iter()
+        .collect::<Result<Vec<_>>>()?;
     let micro = summarise(ranking.curve(None, &true_positive, &ones), cfg)?;
     let map_all_point = mean_defined(per_class.iter().map(|c| c.figures.ap.all_point));
     let map_101 = mean_defined(per_class.iter().map(|c| c.figures.ap.points_101));
 
-    let mut buf = ApScratch::default();
-    let mut sweep_tp = Vec::with_capacity(ranking.len());
     let iou_sweep = (1..=9)
+        .into_par_iter()
         .map(|i| {
             let min_iou = f64::from(i) / 10.0;
-            sweep_tp.clear();
-            for o in &overlaps {
-                o.push_true_positives(min_iou, &mut sweep_tp);
-            }
-            let flags = ranking.flags(&sweep_tp);
-            let (_, m_all, m_101) = class_aps(&ranking, &flags, &ones, n, &mut buf);
+            let mut buf = ApScratch::default();
+            let swept;
+            // The row at the main IoU threshold is the main matching's.
+            let flags = if cfg.criterion == (MatchCriterion::Iou { min_iou }) {
+                &true_positive
+            } else {
+                let mut sweep_tp = Vec::with_capacity(ranking.len());
+                for o in &overlaps {
+                    o.push_true_positives(min_iou, &mut sweep_tp);
+                }
+                swept = ranking.flags(&sweep_tp);
+                &swept
+            };
+            let (_, m_all, m_101) = class_aps(&ranking, flags, &ones, n, &mut buf);
             IouSweepRow {
                 min_iou,
                 map_all_point: m_all,
                 map_101: m_101,
-                micro_ap_all_point: ranking.ap_into(None, &flags, &ones, &mut buf).0,
+                micro_ap_all_point: ranking.ap_into(None, flags, &ones, &mut buf).0,
             }
         })
         .collect();
@@ -647,21 +663,29 @@ fn sheet_intervals(
 ) -> Result<TrustIntervals> {
     let n = per_class.len();
     let counts = threshold.map(|t| sheet_counts(outcomes, t, None));
+    // One replicate's figures: class APs, mAPs, micro AP, operating stats.
+    type Replicate = (Vec<Option<f64>>, Option<f64>, Option<f64>, Option<f64>);
+    let replicates: Vec<Replicate> = draws
+        .par_iter()
+        .map_init(ApScratch::default, |buf, idx| {
+            let w = weights_of(idx, outcomes.len());
+            let (aps, m_all, m_101) = class_aps(ranked.ranking, ranked.flags, &w, n, buf);
+            let micro = ranked.ranking.ap_into(None, ranked.flags, &w, buf).0;
+            (aps, m_all, m_101, micro)
+        })
+        .collect();
     let mut r_map_all = Vec::with_capacity(draws.len());
     let mut r_map_101 = Vec::with_capacity(draws.len());
     let mut r_micro = Vec::with_capacity(draws.len());
     let mut r_class = vec![Vec::with_capacity(draws.len()); n];
     let mut r_op: [Vec<Option<f64>>; 5] = Default::default();
-    let mut buf = ApScratch::default();
-    for idx in draws {
-        let w = weights_of(idx, outcomes.len());
-        let (aps, m_all, m_101) = class_aps(ranked.ranking, ranked.flags, &w, n, &mut buf);
+    for ((aps, m_all, m_101, micro), idx) in replicates.into_iter().zip(draws) {
         r_map_all.push(m_all);
         r_map_101.push(m_101);
         for (k, a) in aps.into_iter().enumerate() {
             r_class[k].push(a);
         }
-        r_micro.push(ranked.ranking.ap_into(None, ranked.flags, &w, &mut buf).0);
+        r_micro.push(micro);
         if let Some(c) = &counts {
             for (j, v) in stats_at(c, idx).into_iter().enumerate() {
                 r_op[j].push(v);
@@ -831,12 +855,34 @@ mod tests {
         // Precision at recall >= 0.9 is never reached; recall at precision >= 0.9 is 0.5 at 0.85.
         assert_eq!(e.micro.precision_at_recall, None);
         assert_eq!(e.micro.recall_at_precision.unwrap().threshold, 0.85);
-        // The sweep's IoU 0.5 row repeats the main figures (same criterion).
+        // The sweep's IoU 0.5 row repeats the main figures; matched afresh
+        // under another main criterion, it still gives them.
         let half = e.iou_sweep.iter().find(|r| r.min_iou == 0.5).unwrap();
         assert_eq!(half.map_all_point, e.map_all_point);
         assert_eq!(e.iou_sweep.len(), 9);
+        let other = SheetEvalConfig {
+            criterion: MatchCriterion::Iou { min_iou: 0.3 },
+            ..cfg.clone()
+        };
+        let o = evaluate_sheets(&sheets(), &names(), &other).unwrap();
+        assert_eq!(o.iou_sweep, e.iou_sweep);
         // Scores as P(true positive): 6 scored detections, 3 true.
         assert_eq!(e.calibration.as_ref().unwrap().n, 6);
+    }
+
+    #[test]
+    fn thread_count_does_not_matter() {
+        let run = |threads: usize| {
+            rayon::ThreadPoolBuilder::new()
+                .num_threads(threads)
+                .build()
+                .unwrap()
+                .install(|| evaluate_sheets(&sheets(), &names(), &SheetEvalConfig::default()))
+                .unwrap()
+        };
+        let one = run(1);
+        assert!(one.intervals.is_some());
+        assert_eq!(one, run(3));
     }
 
     #[test]

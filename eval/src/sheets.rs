@@ -12,6 +12,7 @@
 use crate::error::{EvalError, Result, in_range};
 use crate::matching::{ClassedBox, MatchCriterion, ScoredBox, match_sheet, outside_ignore};
 use crate::pr::{PrCurve, pr_curve};
+use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use std::collections::HashSet;
 use symtrust_labels::BBox;
@@ -88,66 +89,75 @@ pub fn prepare_sheets(sheets: &[SheetInput], class_names: &[String]) -> Result<V
         });
     }
     let mut seen = HashSet::new();
-    let mut out = Vec::with_capacity(sheets.len());
     for s in sheets {
         if !seen.insert(s.sheet.as_str()) {
             return Err(EvalError::DuplicateSheet {
                 sheet: s.sheet.clone(),
             });
         }
-        for (i, r) in s.ignore.iter().enumerate() {
-            check_box(&|| format!("sheet {:?}, ignore region #{i}", s.sheet), r)?;
-        }
-        let mut p = PreparedSheet {
-            sheet: s.sheet.clone(),
-            truths: Vec::new(),
-            dets: Vec::new(),
-            ignored_truths: 0,
-            ignored_detections: 0,
-        };
-        for (i, t) in s.truths.iter().enumerate() {
-            let what = || format!("sheet {:?}, ground-truth symbol #{i}", s.sheet);
-            check_box(&what, &t.bbox)?;
-            let class = class_index(what, &t.class, class_names)?;
-            if outside_ignore(&t.bbox, &s.ignore) {
-                p.truths.push(ClassedBox {
-                    class,
-                    bbox: t.bbox,
-                });
-            } else {
-                p.ignored_truths += 1;
-            }
-        }
-        for (i, d) in s.detections.iter().enumerate() {
-            if d.sheet != s.sheet {
-                return Err(EvalError::WrongSheet {
-                    sheet: s.sheet.clone(),
-                    index: i,
-                    found: d.sheet.clone(),
-                });
-            }
-            let what = || format!("sheet {:?}, detection #{i}", s.sheet);
-            check_box(&what, &d.bbox())?;
-            in_range(
-                || format!("sheet {:?}, detection #{i}, score", s.sheet),
-                d.score,
-                0.0,
-                1.0,
-            )?;
-            let class = class_index(what, &d.class, class_names)?;
-            if outside_ignore(&d.bbox(), &s.ignore) {
-                p.dets.push(ScoredBox {
-                    class,
-                    score: d.score,
-                    bbox: d.bbox(),
-                });
-            } else {
-                p.ignored_detections += 1;
-            }
-        }
-        out.push(p);
     }
-    Ok(out)
+    // Sheets are checked in parallel; the error reported is that of the first
+    // bad sheet in input order, whatever the thread count.
+    let checked: Vec<Result<PreparedSheet>> = sheets
+        .par_iter()
+        .map(|s| prepare_sheet(s, class_names))
+        .collect();
+    checked.into_iter().collect()
+}
+
+/// Checks and filters one sheet (see [`prepare_sheets`]).
+fn prepare_sheet(s: &SheetInput, class_names: &[String]) -> Result<PreparedSheet> {
+    for (i, r) in s.ignore.iter().enumerate() {
+        check_box(&|| format!("sheet {:?}, ignore region #{i}", s.sheet), r)?;
+    }
+    let mut p = PreparedSheet {
+        sheet: s.sheet.clone(),
+        truths: Vec::with_capacity(s.truths.len()),
+        dets: Vec::with_capacity(s.detections.len()),
+        ignored_truths: 0,
+        ignored_detections: 0,
+    };
+    for (i, t) in s.truths.iter().enumerate() {
+        let what = || format!("sheet {:?}, ground-truth symbol #{i}", s.sheet);
+        check_box(&what, &t.bbox)?;
+        let class = class_index(what, &t.class, class_names)?;
+        if outside_ignore(&t.bbox, &s.ignore) {
+            p.truths.push(ClassedBox {
+                class,
+                bbox: t.bbox,
+            });
+        } else {
+            p.ignored_truths += 1;
+        }
+    }
+    for (i, d) in s.detections.iter().enumerate() {
+        if d.sheet != s.sheet {
+            return Err(EvalError::WrongSheet {
+                sheet: s.sheet.clone(),
+                index: i,
+                found: d.sheet.clone(),
+            });
+        }
+        let what = || format!("sheet {:?}, detection #{i}", s.sheet);
+        check_box(&what, &d.bbox())?;
+        in_range(
+            || format!("sheet {:?}, detection #{i}, score", s.sheet),
+            d.score,
+            0.0,
+            1.0,
+        )?;
+        let class = class_index(what, &d.class, class_names)?;
+        if outside_ignore(&d.bbox(), &s.ignore) {
+            p.dets.push(ScoredBox {
+                class,
+                score: d.score,
+                bbox: d.bbox(),
+            });
+        } else {
+            p.ignored_detections += 1;
+        }
+    }
+    Ok(p)
 }
 
 /// One matched detection.
