@@ -467,7 +467,11 @@ fn a_model_evaluation_is_complete_and_consistent() {
         e["micro"]["n_detections"].as_u64().unwrap()
     );
     assert!(m["detect_settings"]["max_per_sheet"].is_null());
-    assert_eq!(e["intervals"]["config"]["resamples"], 200);
+    // One held-out sheet resamples only to itself: no interval, though the
+    // settings asked for the bootstrap are recorded.
+    assert_eq!(m["sheets"].as_array().unwrap().len(), 1);
+    assert_eq!(e["config"]["bootstrap"]["resamples"], 200);
+    assert!(e["intervals"].is_null(), "{}", e["intervals"]);
     assert_eq!(e["iou_sweep"].as_array().unwrap().len(), 9);
 }
 

@@ -591,11 +591,14 @@ pub fn evaluate_sheets(
         Some(calibration(&scored, cfg.calibration_bins)?)
     };
 
-    let draws = match &cfg.bootstrap {
+    // One sheet resamples only to itself: its "interval" would be a point
+    // that says nothing, so none is given.
+    let bootstrap = cfg.bootstrap.as_ref().filter(|_| outcomes.len() > 1);
+    let draws = match bootstrap {
         Some(b) => resample_indices(outcomes.len(), b)?,
         None => Vec::new(),
     };
-    let intervals = match &cfg.bootstrap {
+    let intervals = match bootstrap {
         Some(b) => Some(sheet_intervals(
             &outcomes,
             &Ranked {
@@ -618,7 +621,7 @@ pub fn evaluate_sheets(
             &outcomes,
             class_names,
             t,
-            cfg.bootstrap.as_ref(),
+            bootstrap,
             &draws,
         )?),
         None => None,
@@ -868,6 +871,20 @@ mod tests {
         assert_eq!(o.iou_sweep, e.iou_sweep);
         // Scores as P(true positive): 6 scored detections, 3 true.
         assert_eq!(e.calibration.as_ref().unwrap().n, 6);
+    }
+
+    #[test]
+    fn one_sheet_gets_no_interval() {
+        let one = &sheets()[..1];
+        let e = evaluate_sheets(one, &names(), &SheetEvalConfig::default()).unwrap();
+        assert!(e.intervals.is_none());
+        let rows = e.class_operating.unwrap();
+        assert!(
+            rows.iter()
+                .all(|r| r.precision_interval.is_none() && r.recall_interval.is_none())
+        );
+        let two = evaluate_sheets(&sheets(), &names(), &SheetEvalConfig::default()).unwrap();
+        assert!(two.intervals.is_some());
     }
 
     #[test]

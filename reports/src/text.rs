@@ -141,6 +141,12 @@ pub fn operating_facts(r: &EvaluationRecord) -> Vec<(String, String)> {
         },
     ));
     v.push(("Matching".into(), criterion(&e.config.criterion)));
+    if iv.is_none() && e.config.bootstrap.is_some() && e.n_sheets < 2 {
+        v.push((
+            "Intervals".into(),
+            "none: one held-out sheet resamples only to itself, so it gives no interval".into(),
+        ));
+    }
     if let Some(b) = iv {
         v.push((
             "Intervals".into(),

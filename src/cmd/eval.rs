@@ -926,7 +926,7 @@ fn report_result(ctx: &Ctx, args: &EvalArgs, record: &EvaluationRecord) -> anyho
         if skipped > 0 {
             let on_blank: u64 = record.sheets.iter().filter_map(|s| s.truths_on_blank).sum();
             ctx.say(format!(
-                "blank paper: {skipped} of {windows} windows ({:.0}%) skipped without running the network; {on_blank} of the {} labelled symbols sit on a window that blank{}",
+                "blank paper: {skipped} of {windows} windows ({:.0}%) skipped without running the network; {on_blank} of the {} labelled symbols lie where their window would have been skipped{}",
                 100.0 * skipped as f64 / windows.max(1) as f64,
                 record.sheet_level.micro.n_truths,
                 if on_blank > 0 {
