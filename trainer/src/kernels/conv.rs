@@ -19,7 +19,9 @@
 //! `dcols = W^T dZ` is added back into the input gradient (col2im). Samples
 //! are processed in fixed groups of [`GROUP`], each group's partial weight
 //! and bias gradients summed in group order, so the result does not depend on
-//! the thread count.
+//! the thread count. Pooled f32 blocks whose `c_in` fills whole vectors take
+//! the same groups through `pooled_grad` instead, which works from the kept
+//! maxima directly and needs neither `dZ` nor the GEMMs.
 //!
 //! Ties: where several positions of a pool block hold the same maximum the
 //! gradient goes to the first (as in PyTorch's max pooling); where ReLU's
@@ -32,6 +34,7 @@
 use super::Float;
 use super::direct;
 use super::matmul::{View, gemm};
+use super::pooled_grad;
 use candle_core::{CpuStorage, CustomOp3, Layout, Result, Shape, Storage, Tensor, bail};
 use rayon::prelude::*;
 use std::any::TypeId;
@@ -296,12 +299,8 @@ fn forward_direct<T: Float>(
         return None;
     }
     let plan = direct::plan(g)?;
-    let cast = |s: &[T]| {
-        // SAFETY: T is f32 (same TypeId), so the slice is reinterpreted as itself.
-        unsafe { std::slice::from_raw_parts(s.as_ptr().cast::<f32>(), s.len()) }
-    };
-    let (x, bias) = (cast(x), cast(bias));
-    let w = direct::prepare_weights(plan, g, cast(w));
+    let (x, bias) = (as_f32(x), as_f32(bias));
+    let w = direct::prepare_weights(plan, g, as_f32(w));
     let (per_in, per_out) = (g.in_len(), g.out_len());
     let n = g.batch * per_out;
     let mut out: Vec<f32> = Vec::with_capacity(n);
@@ -321,11 +320,7 @@ fn forward_direct<T: Float>(
         out.set_len(n);
         idx.set_len(n);
     }
-    let mut out = std::mem::ManuallyDrop::new(out);
-    // SAFETY: T is f32, so the allocation, length and capacity are those of a Vec<T>.
-    let out =
-        unsafe { Vec::from_raw_parts(out.as_mut_ptr().cast::<T>(), out.len(), out.capacity()) };
-    Some((out, idx))
+    Some((from_f32(out), idx))
 }
 
 /// The forward pass over the batch: output and pool indices (empty without pooling).
@@ -445,7 +440,42 @@ fn backward_group<T: Float>(
     (dw, db)
 }
 
+/// `s` as f32 values.
+///
+/// # Panics
+/// When `T` is not f32.
+fn as_f32<T: Float>(s: &[T]) -> &[f32] {
+    assert_eq!(TypeId::of::<T>(), TypeId::of::<f32>());
+    // SAFETY: T is f32 (same TypeId), so the slice is reinterpreted as itself.
+    unsafe { std::slice::from_raw_parts(s.as_ptr().cast::<f32>(), s.len()) }
+}
+
+/// `s` as mutable f32 values.
+///
+/// # Panics
+/// When `T` is not f32.
+fn as_f32_mut<T: Float>(s: &mut [T]) -> &mut [f32] {
+    assert_eq!(TypeId::of::<T>(), TypeId::of::<f32>());
+    // SAFETY: as in `as_f32`; the mutable borrow moves into the result.
+    unsafe { std::slice::from_raw_parts_mut(s.as_mut_ptr().cast::<f32>(), s.len()) }
+}
+
+/// An f32 vector as a `Vec<T>`.
+///
+/// # Panics
+/// When `T` is not f32.
+fn from_f32<T: Float>(v: Vec<f32>) -> Vec<T> {
+    assert_eq!(TypeId::of::<T>(), TypeId::of::<f32>());
+    let mut v = std::mem::ManuallyDrop::new(v);
+    // SAFETY: T is f32, so the allocation, length and capacity are those of a Vec<T>.
+    unsafe { Vec::from_raw_parts(v.as_mut_ptr().cast::<T>(), v.len(), v.capacity()) }
+}
+
 /// The backward pass over the batch: `(dx if wanted, dw, db)`.
+///
+/// Pooled f32 blocks whose `c_in` is a multiple of the vector width run on
+/// the arg-max-driven kernels of `pooled_grad` (AVX-512F or AVX2 + FMA);
+/// the others on the pool scatter + GEMM path.
 pub fn backward<T: Float>(
     g: &Geometry,
     x: &[T],
@@ -459,15 +489,37 @@ pub fn backward<T: Float>(
     let per_in = g.in_len();
     let count = |gi: usize| GROUP.min(g.batch - gi * GROUP);
     let mut dx = want_dx.then(|| vec![T::ZERO; g.batch * per_in]);
+    let sparse = if TypeId::of::<T>() == TypeId::of::<f32>() {
+        pooled_grad::plan(g)
+    } else {
+        None
+    };
+    let group = |gi: usize, d: Option<&mut [T]>| match sparse {
+        Some(isa) => {
+            let (dw, db) = pooled_grad::backward_group(
+                isa,
+                g,
+                (gi * GROUP, count(gi)),
+                as_f32(x),
+                as_f32(w),
+                as_f32(out),
+                idx,
+                as_f32(grad),
+                d.map(as_f32_mut),
+            );
+            (from_f32(dw), from_f32(db))
+        }
+        None => backward_group(g, gi * GROUP, count(gi), x, w, out, idx, grad, d),
+    };
     let partials: Vec<(Vec<T>, Vec<T>)> = match dx.as_deref_mut() {
         Some(dx) if per_in > 0 => dx
             .par_chunks_mut(GROUP * per_in)
             .enumerate()
-            .map(|(gi, d)| backward_group(g, gi * GROUP, count(gi), x, w, out, idx, grad, Some(d)))
+            .map(|(gi, d)| group(gi, Some(d)))
             .collect(),
         _ => (0..groups)
             .into_par_iter()
-            .map(|gi| backward_group(g, gi * GROUP, count(gi), x, w, out, idx, grad, None))
+            .map(|gi| group(gi, None))
             .collect(),
     };
     let mut dw = vec![T::ZERO; g.c_out * g.patch()];
@@ -808,6 +860,66 @@ mod tests {
                 let e = max_rel(&out, &candle);
                 prop_assert!(e <= 1e-5, "{isa:?}: against Candle, relative error {e}");
                 prop_assert_eq!(&idx, &gemm_idx, "{:?}: pool positions", isa);
+            }
+        }
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig { cases: 32, ..ProptestConfig::default() })]
+
+        #[test]
+        fn pooled_gradient_kernels_match_the_gemm_path(
+            seed in 0u64..10_000,
+            batch in 1usize..4,
+            c_in in prop::sample::select(vec![8usize, 16, 32]),
+            c_out in 1usize..6,
+            k in 1usize..6,
+            extra_h in 0usize..9,
+            extra_w in 0usize..9,
+            relu in any::<bool>(),
+            want_dx in any::<bool>(),
+        ) {
+            // c_in 8, 16 and 32: whole AVX2 vectors, and whole AVX-512
+            // vectors for 16 and 32; odd sizes, k up to 5 (the default
+            // network's conv2 and conv3 have 16 and 32 input channels).
+            let (h, w) = (k + 1 + extra_h, k + 1 + extra_w);
+            let g = Geometry { batch, c_in, h, w, c_out, k, relu, pool: true };
+            let mut rng = SeededRng::new(seed);
+            let mut rand = |n: usize| -> Vec<f32> {
+                (0..n).map(|_| rng.range_f64(-1.0, 1.0) as f32).collect()
+            };
+            let (x, wt, b) = (rand(batch * g.in_len()), rand(c_out * g.patch()), rand(c_out));
+            let (out, idx) = forward_gemm(&g, &x, &wt, &b);
+            let grad = rand(out.len());
+            let mut dx_ref = want_dx.then(|| vec![0f32; x.len()]);
+            let (dw_ref, db_ref) =
+                backward_group(&g, 0, batch, &x, &wt, &out, &idx, &grad, dx_ref.as_deref_mut());
+            let mut tried = 0;
+            for isa in isas() {
+                if !pooled_grad::fits(isa, &g) {
+                    continue;
+                }
+                tried += 1;
+                let mut dx = want_dx.then(|| vec![f32::NAN; x.len()]);
+                let (dw, db) = pooled_grad::backward_group(
+                    isa, &g, (0, batch), &x, &wt, &out, &idx, &grad, dx.as_deref_mut(),
+                );
+                let e = max_rel(&dw, &dw_ref);
+                prop_assert!(e <= 1e-5, "{isa:?}: weight gradient, relative error {e}");
+                let e = max_rel(&db, &db_ref);
+                prop_assert!(e <= 1e-5, "{isa:?}: bias gradient, relative error {e}");
+                if let (Some(d), Some(r)) = (&dx, &dx_ref) {
+                    let e = max_rel(d, r);
+                    prop_assert!(e <= 1e-5, "{isa:?}: input gradient, relative error {e}");
+                }
+            }
+            // The public entry point dispatches to the pooled kernels here.
+            let (dx, dw, db) = backward(&g, &x, &wt, &out, &idx, &grad, want_dx);
+            prop_assert_eq!(pooled_grad::plan(&g).is_some(), tried > 0);
+            prop_assert!(max_rel(&dw, &dw_ref) <= 1e-5 && max_rel(&db, &db_ref) <= 1e-5);
+            prop_assert_eq!(dx.is_some(), want_dx);
+            if let (Some(d), Some(r)) = (&dx, &dx_ref) {
+                prop_assert!(max_rel(d, r) <= 1e-5);
             }
         }
     }

@@ -64,8 +64,21 @@ impl Isa {
         None
     }
 
+    /// Whether this CPU has the instruction set.
+    pub(crate) fn available(self) -> bool {
+        match self {
+            #[cfg(target_arch = "x86_64")]
+            Self::Avx512 => std::arch::is_x86_feature_detected!("avx512f"),
+            #[cfg(target_arch = "x86_64")]
+            Self::Avx2 => {
+                std::arch::is_x86_feature_detected!("avx2")
+                    && std::arch::is_x86_feature_detected!("fma")
+            }
+        }
+    }
+
     /// Lanes per vector.
-    fn lanes(self) -> usize {
+    pub(crate) fn lanes(self) -> usize {
         match self {
             #[cfg(target_arch = "x86_64")]
             Self::Avx512 => 16,
@@ -189,12 +202,12 @@ pub(crate) fn forward_sample(
 }
 
 #[cfg(target_arch = "x86_64")]
-mod x86 {
+pub(super) mod x86 {
     use super::Geometry;
     use std::arch::x86_64::*;
 
     /// The vector operations the kernel is written in.
-    pub(super) trait Lanes: Copy {
+    pub(in crate::kernels) trait Lanes: Copy {
         /// Lanes per vector.
         const L: usize;
         /// All zeros.
@@ -217,7 +230,7 @@ mod x86 {
     }
 
     #[derive(Clone, Copy)]
-    pub(super) struct V512(__m512);
+    pub(in crate::kernels) struct V512(__m512);
 
     impl Lanes for V512 {
         const L: usize = 16;
@@ -286,7 +299,7 @@ mod x86 {
     }
 
     #[derive(Clone, Copy)]
-    pub(super) struct V256(__m256);
+    pub(in crate::kernels) struct V256(__m256);
 
     impl Lanes for V256 {
         const L: usize = 8;

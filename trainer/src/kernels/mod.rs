@@ -13,7 +13,11 @@
 //!   convolution in AVX-512 or AVX2 + FMA (detected at run time) with bias,
 //!   ReLU, pooling and arg-max applied in registers, so the un-pooled output
 //!   is never stored: conv columns in the vector lanes for one input channel
-//!   (the first layer), output channels in the lanes for several.
+//!   (the first layer), output channels in the lanes for several. The
+//!   backward of a pooled f32 block whose input channels fill whole vectors
+//!   (conv2, conv3) skips the GEMMs: `pooled_grad` adds each kept maximum's
+//!   gradient straight into the weight and input gradients (at most one conv
+//!   value in four has one), vectorised along the input channels.
 //! - [`head`]: the dense layers as convolutions over a feature map, evaluated
 //!   only at chosen cells (the score map's blank-paper skipping).
 //!
@@ -25,6 +29,7 @@ pub mod conv;
 mod direct;
 pub mod head;
 mod matmul;
+mod pooled_grad;
 
 /// The floating-point types the kernels run in (f32 for use, f64 for gradient checks).
 pub trait Float:
