@@ -14,6 +14,9 @@
 //!   and several sheet counts. The bootstrap's cost is the time with it minus
 //!   the time without it; dividing by resamples, and by resamples x sheets,
 //!   gives the per-unit cost, which stays flat when the cost is linear.
+//!
+//! `SYMTRUST_BENCH_MILLION_ONLY=1` runs only the million-detection case
+//! without the bootstrap, five times, and writes nothing (for profiling).
 
 use std::fmt::Write as _;
 use std::hint::black_box;
@@ -243,6 +246,19 @@ fn write_report(section: &str) {
     println!("figures written to {}", path.display());
 }
 
+/// Five timed runs of the million-detection case without the bootstrap,
+/// printed and not written to the report: for profiling (`perf record`).
+fn million_only(rng: &mut SeededRng) {
+    let names8 = class_names(8);
+    let big = make_sheets(rng, 1000, 600, 1000, &names8);
+    for _ in 0..5 {
+        let (wall, cpu) = median_wall_and_cpu(1, || {
+            black_box(evaluate_sheets(&big, &names8, &no_bootstrap()).unwrap());
+        });
+        println!("one million detections: {wall:?} wall, {}", cpu_text(cpu));
+    }
+}
+
 /// Prints a line and adds it to the report section.
 fn emit(md: &mut String, line: String) {
     println!("{line}");
@@ -254,6 +270,10 @@ fn main() {
     let load_before = load_average();
     let mut md = String::new();
     let mut rng = SeededRng::new(42);
+    if std::env::var_os("SYMTRUST_BENCH_MILLION_ONLY").is_some() {
+        million_only(&mut rng);
+        return;
+    }
 
     // A 7000 x 5000 px sheet at stride 8: windows of 64 px, 20 000 candidates.
     let cands: Vec<ScoredBox> = (0..20_000)
