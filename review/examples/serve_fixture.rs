@@ -100,16 +100,7 @@ fn main() {
     )
     .expect("merge");
     store.save(&merged, "bench").expect("save");
-    let server = ReviewServer::start(
-        site,
-        ReviewSettings {
-            bind: "127.0.0.1".parse().expect("ip"),
-            port: 0,
-            token: None,
-            user: "bench".into(),
-        },
-    )
-    .expect("server");
+    let server = ReviewServer::start(site, ReviewSettings::loopback("bench")).expect("server");
     println!(
         "{}",
         serde_json::json!({

@@ -81,6 +81,32 @@ pub fn accept_page_edit(
     Ok(incoming)
 }
 
+/// Longest reviewer name accepted, in characters.
+pub const MAX_REVIEWER_CHARS: usize = 64;
+
+/// The reviewer named by the page (percent-encoded UTF-8, as a header carries
+/// it): trimmed, 1 to [`MAX_REVIEWER_CHARS`] characters, no control characters.
+pub fn reviewer_name(encoded: &str) -> Result<String, String> {
+    let decoded = percent_encoding::percent_decode_str(encoded)
+        .decode_utf8()
+        .map_err(|_| "the reviewer name is not valid UTF-8".to_string())?;
+    let name = decoded.trim();
+    if name.is_empty() {
+        return Err(
+            "the reviewer name is empty; type your name in the page's Reviewer field".into(),
+        );
+    }
+    if name.chars().count() > MAX_REVIEWER_CHARS {
+        return Err(format!(
+            "the reviewer name is longer than {MAX_REVIEWER_CHARS} characters"
+        ));
+    }
+    if name.chars().any(char::is_control) {
+        return Err("the reviewer name contains control characters".into());
+    }
+    Ok(name.to_string())
+}
+
 fn check_symbol(s: &Symbol, doc: &LabelDocument, classes: &[String]) -> Result<(), String> {
     let b = &s.bbox;
     if !b.is_finite() || b.w <= 0.0 || b.h <= 0.0 {
@@ -167,6 +193,19 @@ mod tests {
         same.symbols[0].by = "forged".into();
         let out = accept_page_edit(&disk, same, &classes(), "ana", "t1").unwrap();
         assert_eq!(out.symbols[0].by, "bot");
+    }
+
+    #[test]
+    fn reviewer_names_are_decoded_trimmed_and_bounded() {
+        assert_eq!(reviewer_name("Ana%20Ruiz").unwrap(), "Ana Ruiz");
+        // "Zoë" in UTF-8 is 5a 6f c3 ab.
+        assert_eq!(reviewer_name("Zo%C3%AB").unwrap(), "Zoë");
+        assert_eq!(reviewer_name("  lee ").unwrap(), "lee");
+        assert_eq!(reviewer_name(&"é".repeat(64)).unwrap().chars().count(), 64);
+        assert!(reviewer_name(&"x".repeat(65)).is_err());
+        for bad in ["", "%20%20", "a%0Ab", "a%00", "%FF%FE"] {
+            assert!(reviewer_name(bad).is_err(), "{bad}");
+        }
     }
 
     #[test]

@@ -9,7 +9,9 @@ pub mod error;
 pub mod pyramid;
 pub mod security;
 pub mod server;
+pub mod sheet_tiles;
 pub mod summary;
+pub mod tile_cache;
 
 pub use error::{Result, ReviewError};
-pub use server::{ReviewServer, ReviewSettings};
+pub use server::{ReviewServer, ReviewSettings, Timeouts};

@@ -28,12 +28,39 @@ pub struct Pyramid {
 }
 
 /// Sizes the page needs to lay out tiles.
-#[derive(Debug, Clone, PartialEq, Eq, serde::Serialize)]
+#[derive(Debug, Clone, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
 pub struct PyramidInfo {
     /// Side of a tile in pixels.
     pub tile: u32,
     /// Width and height of each level, level 0 first.
     pub levels: Vec<(u32, u32)>,
+}
+
+impl PyramidInfo {
+    /// Columns and rows of tiles of each level, level 0 first.
+    pub fn grid(&self) -> Vec<(u32, u32)> {
+        self.levels
+            .iter()
+            .map(|&(w, h)| (w.div_ceil(self.tile), h.div_ceil(self.tile)))
+            .collect()
+    }
+
+    /// Position of tile (`level`, `col`, `row`) in the order level by level,
+    /// row by row; `None` when out of range.
+    pub fn index(&self, level: usize, col: u32, row: u32) -> Option<usize> {
+        let grid = self.grid();
+        let &(cols, rows) = grid.get(level)?;
+        if col >= cols || row >= rows {
+            return None;
+        }
+        let before: u32 = grid[..level].iter().map(|(c, r)| c * r).sum();
+        Some((before + row * cols + col) as usize)
+    }
+
+    /// Number of tiles over all levels.
+    pub fn tile_count(&self) -> usize {
+        self.grid().iter().map(|(c, r)| (c * r) as usize).sum()
+    }
 }
 
 /// Halves an image (2 x 2 mean, rounded to nearest; edge pixels of odd sides
@@ -105,6 +132,20 @@ impl Pyramid {
         }
     }
 
+    /// Every tile's PNG in [`PyramidInfo::index`] order (encodes those not yet
+    /// encoded).
+    pub fn all_tiles(&self) -> Vec<&[u8]> {
+        let mut out = Vec::new();
+        for (level, l) in self.levels.iter().enumerate() {
+            for row in 0..l.rows {
+                for col in 0..l.cols {
+                    out.push(self.tile_png(level, col, row).expect("in range"));
+                }
+            }
+        }
+        out
+    }
+
     /// The PNG of one tile, or `None` when level, column or row is out of range.
     pub fn tile_png(&self, level: usize, col: u32, row: u32) -> Option<&[u8]> {
         let l = self.levels.get(level)?;
@@ -173,5 +214,17 @@ mod tests {
         assert_eq!(tile.get_pixel(5, 9), img.get_pixel(1029, 521));
         assert!(p.tile_png(0, 3, 0).is_none());
         assert!(p.tile_png(3, 0, 0).is_none());
+        // Grid 3 x 2, then 2 x 1, then 1 x 1: nine tiles, numbered level by
+        // level and row by row.
+        let info = p.info();
+        assert_eq!(info.grid(), vec![(3, 2), (2, 1), (1, 1)]);
+        assert_eq!(info.tile_count(), 9);
+        assert_eq!(info.index(0, 2, 1), Some(5));
+        assert_eq!(info.index(1, 1, 0), Some(7));
+        assert_eq!(info.index(2, 0, 0), Some(8));
+        assert_eq!(info.index(2, 1, 0), None);
+        let all = p.all_tiles();
+        assert_eq!(all.len(), 9);
+        assert_eq!(all[5], png);
     }
 }

@@ -8,31 +8,43 @@
 //! | `GET /api/sheets` | every sheet's progress |
 //! | `GET /api/sheets/ID` | the label document |
 //! | `PUT /api/sheets/ID` | save the document sent (revision checked); the new revision, or 409 |
+//! | `PATCH /api/sheets/ID` | the same with only the changes: a [`Changes`] body |
 //! | `GET /api/sheets/ID/tiles` | pyramid sizes |
 //! | `GET /api/sheets/ID/tiles/L/C/R` | one PNG tile |
 //!
 //! Every request must carry an allowed Host header; every API request the session
-//! token in the [`TOKEN_HEADER`] header, and a `PUT` also a same-origin `Origin`
-//! or `Sec-Fetch-Site` when the browser sends them. Bodies are limited to
-//! [`MAX_BODY_BYTES`].
+//! token in the [`TOKEN_HEADER`] header, and a save also a same-origin `Origin`
+//! or `Sec-Fetch-Site` when the browser sends them. A save may name the
+//! reviewer in [`REVIEWER_HEADER`] (see [`crate::edits::reviewer_name`]); without
+//! it changes are attributed to the user the server runs as. Bodies are limited
+//! to [`MAX_BODY_BYTES`].
+//!
+//! A connection that sends no complete request head within
+//! [`Timeouts::header`] is closed (idle keep-alive connections too), and a body
+//! that does not arrive within [`Timeouts::body`] is answered 408, so slow or
+//! stalled clients cannot hold the server's connections.
+//!
+//! When the server starts, a thread makes the tiles of every sheet ahead of use
+//! ([`TileStore::prepare_all`]).
 
-use crate::edits::accept_page_edit;
+use crate::edits::{accept_page_edit, reviewer_name};
 use crate::error::{Result, ReviewError};
-use crate::pyramid::Pyramid;
 use crate::security::{
     TOKEN_HEADER, allowed_hosts, check_token, host_allowed, new_token, same_origin,
     sheet_id_from_segment, tokens_equal,
 };
+use crate::sheet_tiles::TileStore;
 use crate::summary::all_progress;
 use axum::http::Method;
 use serde_json::json;
+use std::convert::Infallible;
 use std::net::{IpAddr, SocketAddr};
-use std::sync::{Arc, Mutex, OnceLock};
+use std::sync::Arc;
 use std::thread::JoinHandle;
+use std::time::Duration;
 use symtrust_labels::LabelError;
 use symtrust_labels::clock::now_rfc3339;
-use symtrust_labels::document::{LabelDocument, SheetRecord};
-use symtrust_labels::sheets::load_sheet;
+use symtrust_labels::document::{IgnoreRegion, LabelDocument, Symbol};
 use symtrust_labels::site::Site;
 use symtrust_labels::store::LabelStore;
 
@@ -42,11 +54,47 @@ pub const MAX_BODY_BYTES: usize = 8 * 1024 * 1024;
 /// Threads of the async runtime (saving and tiles run on its blocking pool).
 const WORKERS: usize = 6;
 
-/// Sheets whose pyramids are kept in memory.
-const PYRAMIDS_KEPT: usize = 3;
+/// Header naming the reviewer of a save (percent-encoded UTF-8).
+pub const REVIEWER_HEADER: &str = "X-Symtrust-Reviewer";
 
 /// The page, built into the binary.
 pub const PAGE_HTML: &str = include_str!("../page/index.html");
+
+/// The body of a `PATCH`: what the page changed since the revision it read.
+/// Applied to the document on disk at that revision, it gives the document the
+/// page holds; then it is checked and saved exactly as a `PUT` of that document.
+/// At 5,000 boxes it is a few hundred bytes where the whole document is a
+/// megabyte, which keeps saving off the page's key path.
+#[derive(Debug, Clone, serde::Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Changes {
+    /// The revision the page read.
+    pub revision: u64,
+    /// Symbols added or changed: each replaces the symbol of its id, or is
+    /// added at the end.
+    pub symbols: Vec<Symbol>,
+    /// Ids of symbols deleted.
+    pub removed: Vec<String>,
+    /// The whole list of ignore regions.
+    pub ignore: Vec<IgnoreRegion>,
+}
+
+impl Changes {
+    /// The document `base` becomes with these changes.
+    pub fn apply(self, base: &LabelDocument) -> LabelDocument {
+        let mut doc = base.clone();
+        doc.revision = self.revision;
+        doc.symbols.retain(|s| !self.removed.contains(&s.id));
+        for s in self.symbols {
+            match doc.symbols.iter_mut().find(|o| o.id == s.id) {
+                Some(slot) => *slot = s,
+                None => doc.symbols.push(s),
+            }
+        }
+        doc.ignore = self.ignore;
+        doc
+    }
+}
 
 /// How the server is started.
 #[derive(Debug, Clone)]
@@ -58,12 +106,47 @@ pub struct ReviewSettings {
     /// Access token; required for an address that is not loopback. A fresh
     /// random one is made when `None`.
     pub token: Option<String>,
-    /// Who the saved changes are attributed to.
+    /// Who the saved changes are attributed to when the page names nobody.
     pub user: String,
+    /// Limits on slow clients.
+    pub timeouts: Timeouts,
+    /// Make every sheet's tiles when the server starts (otherwise on first
+    /// request).
+    pub prepare_tiles: bool,
 }
 
-type PyramidSlot = Arc<OnceLock<std::result::Result<Arc<Pyramid>, String>>>;
-type PyramidCache = Vec<(SheetRecord, PyramidSlot)>;
+impl ReviewSettings {
+    /// Loopback, a free port, a fresh token, default timeouts, tiles made ahead.
+    pub fn loopback(user: &str) -> Self {
+        Self {
+            bind: IpAddr::from([127, 0, 0, 1]),
+            port: 0,
+            token: None,
+            user: user.to_string(),
+            timeouts: Timeouts::default(),
+            prepare_tiles: true,
+        }
+    }
+}
+
+/// How long the server waits for a slow client.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Timeouts {
+    /// For the head of a request (request line and headers), counted from the
+    /// connection's start or the end of its previous request.
+    pub header: Duration,
+    /// For the whole body of a request once its head is read.
+    pub body: Duration,
+}
+
+impl Default for Timeouts {
+    fn default() -> Self {
+        Self {
+            header: Duration::from_secs(15),
+            body: Duration::from_secs(30),
+        }
+    }
+}
 
 struct State {
     site: Site,
@@ -72,7 +155,7 @@ struct State {
     token: String,
     hosts: Vec<String>,
     user: String,
-    pyramids: Mutex<PyramidCache>,
+    tiles: TileStore,
 }
 
 /// A running review server; stops on [`ReviewServer::stop`].
@@ -111,34 +194,30 @@ impl ReviewServer {
         let state = Arc::new(State {
             store: LabelStore::new(&site),
             classes: site.config.class_names(),
+            tiles: TileStore::new(site.clone()),
             site,
             token: token.clone(),
             hosts: allowed_hosts(settings.bind, addr.port()),
             user: settings.user,
-            pyramids: Mutex::new(Vec::new()),
         });
         let runtime = tokio::runtime::Builder::new_multi_thread()
             .worker_threads(WORKERS)
             .enable_io()
+            .enable_time()
             .build()
             .map_err(listen_err)?;
         let listener = {
             let _guard = runtime.enter();
             tokio::net::TcpListener::from_std(listener).map_err(listen_err)?
         };
-        let (stop, stopped) = tokio::sync::oneshot::channel::<()>();
-        let app = axum::Router::new().fallback(move |rq: axum::extract::Request| {
+        if settings.prepare_tiles {
             let state = Arc::clone(&state);
-            async move { serve(state, rq).await }
-        });
+            std::thread::spawn(move || state.tiles.prepare_all(&state.store));
+        }
+        let (stop, stopped) = tokio::sync::oneshot::channel::<()>();
+        let timeouts = settings.timeouts;
         let thread = std::thread::spawn(move || {
-            runtime.block_on(async move {
-                let _ = axum::serve(listener, app)
-                    .with_graceful_shutdown(async move {
-                        let _ = stopped.await;
-                    })
-                    .await;
-            });
+            runtime.block_on(accept_loop(listener, state, timeouts, stopped));
         });
         Ok(Self {
             thread,
@@ -174,7 +253,8 @@ impl ReviewServer {
         let _ = self.thread.join();
     }
 
-    /// Stops serving (requests in progress finish) and closes the socket.
+    /// Stops serving and closes the socket (a save in progress still reaches
+    /// the disk).
     pub fn stop(self) {
         let _ = self.stop.send(());
         let _ = self.thread.join();
@@ -204,7 +284,51 @@ impl Reply {
     }
 }
 
-async fn serve(state: Arc<State>, rq: axum::extract::Request) -> axum::response::Response {
+/// Accepts connections until `stopped`, each served by hyper's HTTP/1 with the
+/// head timeout on tokio's timer.
+async fn accept_loop(
+    listener: tokio::net::TcpListener,
+    state: Arc<State>,
+    timeouts: Timeouts,
+    mut stopped: tokio::sync::oneshot::Receiver<()>,
+) {
+    loop {
+        let stream = tokio::select! {
+            _ = &mut stopped => return,
+            accepted = listener.accept() => match accepted {
+                Ok((stream, _)) => stream,
+                // Out of file descriptors and the like: wait a little, go on.
+                Err(_) => {
+                    tokio::time::sleep(Duration::from_millis(50)).await;
+                    continue;
+                }
+            },
+        };
+        let state = Arc::clone(&state);
+        tokio::spawn(async move {
+            let service =
+                hyper::service::service_fn(move |rq: hyper::Request<hyper::body::Incoming>| {
+                    let state = Arc::clone(&state);
+                    async move {
+                        Ok::<_, Infallible>(
+                            serve(state, rq.map(axum::body::Body::new), timeouts.body).await,
+                        )
+                    }
+                });
+            let _ = hyper::server::conn::http1::Builder::new()
+                .timer(hyper_util::rt::TokioTimer::new())
+                .header_read_timeout(timeouts.header)
+                .serve_connection(hyper_util::rt::TokioIo::new(stream), service)
+                .await;
+        });
+    }
+}
+
+async fn serve(
+    state: Arc<State>,
+    rq: axum::extract::Request,
+    body_timeout: Duration,
+) -> axum::response::Response {
     let (parts, body) = rq.into_parts();
     let announced_too_big = parts
         .headers
@@ -215,10 +339,20 @@ async fn serve(state: Arc<State>, rq: axum::extract::Request) -> axum::response:
     let body = if announced_too_big {
         None
     } else {
-        axum::body::to_bytes(body, MAX_BODY_BYTES)
-            .await
-            .ok()
-            .map(|b| b.to_vec())
+        match tokio::time::timeout(body_timeout, axum::body::to_bytes(body, MAX_BODY_BYTES)).await {
+            Ok(read) => read.ok().map(|b| b.to_vec()),
+            Err(_) => {
+                let late = error_reply(
+                    408,
+                    format!(
+                        "the request body did not arrive within {} s",
+                        body_timeout.as_secs_f64()
+                    ),
+                )
+                .with_header("connection", "close");
+                return into_response(late);
+            }
+        }
     };
     let incoming = Incoming {
         method: parts.method.clone(),
@@ -238,6 +372,10 @@ async fn serve(state: Arc<State>, rq: axum::extract::Request) -> axum::response:
     let reply = tokio::task::spawn_blocking(move || route(&state, &incoming))
         .await
         .unwrap_or_else(|e| error_reply(500, format!("internal error: {e}")));
+    into_response(reply)
+}
+
+fn into_response(reply: Reply) -> axum::response::Response {
     let mut response = axum::response::Response::new(axum::body::Body::from(reply.body));
     *response.status_mut() = axum::http::StatusCode::from_u16(reply.status)
         .unwrap_or(axum::http::StatusCode::INTERNAL_SERVER_ERROR);
@@ -283,7 +421,7 @@ fn header_value<'a>(rq: &'a Incoming, name: &str) -> Option<&'a str> {
         .map(|(_, v)| v.as_str())
 }
 
-fn route(state: &State, rq: &Incoming) -> Reply {
+fn route(state: &Arc<State>, rq: &Incoming) -> Reply {
     let host = header_value(rq, "Host").map(str::to_string);
     if !host_allowed(host.as_deref(), &state.hosts) {
         return error_reply(
@@ -365,7 +503,7 @@ fn route(state: &State, rq: &Incoming) -> Reply {
             match (method.as_str(), rest) {
                 ("GET", []) => match state.store.load(&id) {
                     Ok(doc) => {
-                        warm_pyramid(state, &doc);
+                        warm_tiles(state, &doc);
                         json_reply(
                             200,
                             &serde_json::to_value(&doc).expect("documents serialise"),
@@ -373,7 +511,7 @@ fn route(state: &State, rq: &Incoming) -> Reply {
                     }
                     Err(e) => error_reply(500, e.to_string()),
                 },
-                ("PUT", []) => {
+                ("PUT" | "PATCH", []) => {
                     if !same_origin(
                         header_value(rq, "Origin"),
                         header_value(rq, "Sec-Fetch-Site"),
@@ -383,7 +521,7 @@ fn route(state: &State, rq: &Incoming) -> Reply {
                     }
                     save(state, &id, rq)
                 }
-                ("GET", ["tiles"]) => match pyramid(state, &id) {
+                ("GET", ["tiles"]) => match sheet_tiles(state, &id) {
                     Ok(p) => json_reply(200, &serde_json::to_value(p.info()).expect("serialises")),
                     Err(e) => error_reply(500, e),
                 },
@@ -391,9 +529,9 @@ fn route(state: &State, rq: &Incoming) -> Reply {
                     let (Ok(l), Ok(c), Ok(r)) = (l.parse::<usize>(), c.parse(), r.parse()) else {
                         return error_reply(400, "tile address is /tiles/LEVEL/COL/ROW in numbers");
                     };
-                    match pyramid(state, &id) {
+                    match sheet_tiles(state, &id) {
                         Ok(p) => match p.tile_png(l, c, r) {
-                            Some(png) => reply(200, "image/png", png.to_vec()),
+                            Some(png) => reply(200, "image/png", png),
                             None => error_reply(404, "no such tile"),
                         },
                         Err(e) => error_reply(500, e),
@@ -434,9 +572,35 @@ fn save(state: &State, id: &str, rq: &Incoming) -> Reply {
         Ok(b) => b,
         Err(r) => return r,
     };
-    let incoming: LabelDocument = match serde_json::from_slice(body) {
+    let who = match header_value(rq, REVIEWER_HEADER) {
+        None => state.user.clone(),
+        Some(given) => match reviewer_name(given) {
+            Ok(name) => name,
+            Err(why) => return error_reply(400, why),
+        },
+    };
+    let on_disk = match state.store.load(id) {
         Ok(d) => d,
-        Err(e) => return error_reply(400, format!("the document sent is not valid: {e}")),
+        Err(e) => return error_reply(500, e.to_string()),
+    };
+    let incoming: LabelDocument = if rq.method == Method::PATCH {
+        match serde_json::from_slice::<Changes>(body) {
+            Ok(c) if c.revision == on_disk.revision => c.apply(&on_disk),
+            Ok(c) => {
+                return conflict(
+                    on_disk.revision,
+                    c.revision,
+                    &on_disk.changed_by,
+                    &on_disk.changed_at,
+                );
+            }
+            Err(e) => return error_reply(400, format!("the changes sent are not valid: {e}")),
+        }
+    } else {
+        match serde_json::from_slice(body) {
+            Ok(d) => d,
+            Err(e) => return error_reply(400, format!("the document sent is not valid: {e}")),
+        }
     };
     if incoming.sheet.id != id {
         return error_reply(
@@ -447,10 +611,6 @@ fn save(state: &State, id: &str, rq: &Incoming) -> Reply {
             ),
         );
     }
-    let on_disk = match state.store.load(id) {
-        Ok(d) => d,
-        Err(e) => return error_reply(500, e.to_string()),
-    };
     if on_disk.revision != incoming.revision {
         return conflict(
             on_disk.revision,
@@ -459,17 +619,11 @@ fn save(state: &State, id: &str, rq: &Incoming) -> Reply {
             &on_disk.changed_at,
         );
     }
-    let doc = match accept_page_edit(
-        &on_disk,
-        incoming,
-        &state.classes,
-        &state.user,
-        &now_rfc3339(),
-    ) {
+    let doc = match accept_page_edit(&on_disk, incoming, &state.classes, &who, &now_rfc3339()) {
         Ok(d) => d,
         Err(message) => return error_reply(400, message),
     };
-    match state.store.save(&doc, &state.user) {
+    match state.store.save(&doc, &who) {
         Ok(saved) => json_reply(
             200,
             &json!({
@@ -489,60 +643,24 @@ fn save(state: &State, id: &str, rq: &Incoming) -> Reply {
     }
 }
 
-fn load_pyramid(site: &Site, sheet: &SheetRecord) -> std::result::Result<Arc<Pyramid>, String> {
-    load_sheet(site, sheet)
-        .map(|img| Arc::new(Pyramid::build(img)))
-        .map_err(|e| e.to_string())
+fn sheet_tiles(state: &State, id: &str) -> std::result::Result<crate::sheet_tiles::Tiles, String> {
+    state.tiles.tiles_by_id(id, || {
+        state
+            .store
+            .load(id)
+            .map(|doc| doc.sheet)
+            .map_err(|e| e.to_string())
+    })
 }
 
-/// The cache slot of a sheet's pyramid: found by id (most recently used last),
-/// or made from `sheet` when given; `None` when absent and no record was given.
-fn pyramid_slot(
-    state: &State,
-    id: &str,
-    sheet: Option<&SheetRecord>,
-) -> Option<(SheetRecord, PyramidSlot)> {
-    let mut cache = state.pyramids.lock().unwrap_or_else(|p| p.into_inner());
-    if let Some(pos) = cache
-        .iter()
-        .position(|(rec, _)| rec.id == id && sheet.is_none_or(|s| s == rec))
-    {
-        let entry = cache.remove(pos);
-        cache.push(entry.clone());
-        return Some(entry);
-    }
-    let sheet = sheet?;
-    cache.retain(|(rec, _)| rec.id != id);
-    if cache.len() >= PYRAMIDS_KEPT {
-        cache.remove(0);
-    }
-    let entry = (sheet.clone(), PyramidSlot::default());
-    cache.push(entry.clone());
-    Some(entry)
-}
-
-fn pyramid(state: &State, id: &str) -> std::result::Result<Arc<Pyramid>, String> {
-    let (sheet, slot) = match pyramid_slot(state, id, None) {
-        Some(entry) => entry,
-        None => {
-            let doc = state.store.load(id).map_err(|e| e.to_string())?;
-            pyramid_slot(state, id, Some(&doc.sheet)).expect("a record was given")
-        }
-    };
-    slot.get_or_init(|| load_pyramid(&state.site, &sheet))
-        .clone()
-}
-
-/// Starts building the pyramid of a sheet whose document was just read, so the
-/// first tiles are ready sooner.
-fn warm_pyramid(state: &State, doc: &LabelDocument) {
-    let (sheet, slot) =
-        pyramid_slot(state, &doc.sheet.id, Some(&doc.sheet)).expect("a record was given");
-    if slot.get().is_some() {
+/// Starts making the tiles of a sheet whose document was just read, unless they
+/// are ready, so the first tiles come sooner.
+fn warm_tiles(state: &Arc<State>, doc: &LabelDocument) {
+    if state.tiles.is_packed(&doc.sheet) {
         return;
     }
-    let site = state.site.clone();
+    let (state, sheet) = (Arc::clone(state), doc.sheet.clone());
     std::thread::spawn(move || {
-        slot.get_or_init(|| load_pyramid(&site, &sheet));
+        let _ = state.tiles.tiles(&sheet);
     });
 }

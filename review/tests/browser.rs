@@ -58,16 +58,7 @@ fn review_flow_in_headless_chromium() {
     let dir = tempfile::tempdir().unwrap();
     let (site, sheet) = common::fixture_site(dir.path(), 5);
     let store = LabelStore::new(&site);
-    let server = ReviewServer::start(
-        site,
-        ReviewSettings {
-            bind: "127.0.0.1".parse().unwrap(),
-            port: 0,
-            token: None,
-            user: "browser-reviewer".into(),
-        },
-    )
-    .unwrap();
+    let server = ReviewServer::start(site, ReviewSettings::loopback("browser-reviewer")).unwrap();
     let shots = Path::new(env!("CARGO_TARGET_TMPDIR")).join("review-browser");
     let started = Instant::now();
     let mut child = Command::new("node")

@@ -43,7 +43,7 @@ pub fn run(ctx: &Ctx, args: &ReviewArgs) -> anyhow::Result<u8> {
             bind: args.bind,
             port: args.port,
             token: args.token.clone(),
-            user: current_user(),
+            ..ReviewSettings::loopback(&current_user())
         },
     )?;
     if ctx.json {

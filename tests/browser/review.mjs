@@ -175,7 +175,7 @@ await page.reload();
 await ready(page);
 let puts = 0;
 await page.route("**/api/sheets/**", (route) => {
-  if (route.request().method() === "PUT") {
+  if (["PUT", "PATCH"].includes(route.request().method())) {
     puts += 1;
     if (puts === 1) return route.abort("failed");
   }
@@ -193,7 +193,27 @@ check(puts === 2, `the save was sent twice (${puts})`);
 check(sym(disk(), retried).state === "accepted", "the retried save reached the disk");
 await page.unroute("**/api/sheets/**");
 
-// ---- 7. hostile requests ----------------------------------------------------
+// ---- 7. the reviewer names themselves; edges moved from the left and top ---
+const hand = drawn[0].id;
+await page.fill("#reviewer", "Zoë Park");
+await page.press("#reviewer", "Enter");
+await page.keyboard.press("Escape");
+await page.evaluate((id) => { window.__review.sel = { kind: "sym", id }; }, hand);
+const handBefore = sym(disk(), hand).box;
+await page.keyboard.press("Shift+Alt+ArrowLeft");
+await page.keyboard.press("Alt+ArrowDown");
+await saved(page);
+const handAfter = sym(disk(), hand);
+check(handAfter.box.x === handBefore.x - 10 && handAfter.box.w === handBefore.w + 10, "Shift+Alt+Left moved the left edge 10 px out, the right edge stayed: " + JSON.stringify(handAfter.box));
+check(handAfter.box.y === handBefore.y + 1 && handAfter.box.h === handBefore.h - 1, "Alt+Down moved the top edge 1 px down, the bottom edge stayed: " + JSON.stringify(handAfter.box));
+check(handAfter.by === "Zoë Park" && disk().changed_by === "Zoë Park", `the change is recorded as the named reviewer's (${handAfter.by})`);
+check(sym(disk(), order[0]).by === "browser-reviewer", "earlier decisions keep who made them");
+await page.reload();
+await ready(page);
+check((await page.inputValue("#reviewer")) === "Zoë Park", "the name is kept in the browser across reloads");
+await page.screenshot({ path: path.join(shots, "reviewer.png") });
+
+// ---- 8. hostile requests ----------------------------------------------------
 const traversal = await page.evaluate(async (t) => {
   const out = [];
   for (const p of ["/api/sheets/..%2F..%2Fsite.toml", "/api/sheets/%2e%2e/tiles", "/api/sheets/%252e%252e"]) {
