@@ -132,7 +132,7 @@ pub fn trust_statement(e: &SheetEvaluation, detector: &str) -> String {
     }
     if e.n_sheets < 10 {
         s.push_str(
-            "; with this few sheets they are wide and the figures may not hold on other sheets.",
+            "; with fewer than 10 sheets the intervals are rough (a zero-width one only means every resample agreed) and the figures may not hold on other sheets.",
         );
     } else {
         s.push('.');
@@ -254,7 +254,7 @@ mod tests {
         assert!(iv.lower.unwrap() < 0.75 && iv.upper.unwrap() > 0.75);
         assert!(
             s.contains(
-                "Ranges are 95% bootstrap intervals over whole sheets; with this few sheets"
+                "Ranges are 95% bootstrap intervals over whole sheets; with fewer than 10 sheets the intervals are rough"
             ),
             "{s}"
         );
