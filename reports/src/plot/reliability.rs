@@ -116,10 +116,40 @@ impl Plot for ReliabilityPlot {
                     py: at.1,
                 });
             }
-            // Legend, top left.
-            let (x0, y0) = chart.backend_coord(&(0.03, 0.97));
-            let y = y0 + sz(18.0, s) as i32 * i as i32 + sz(6.0, s) as i32;
-            let x1 = x0 + sz(28.0, s) as i32;
+        }
+        // Legend, top left, drawn after every curve on a paper-white box so no
+        // curve crosses its text; the dashed diagonal is its last entry.
+        let (x0, y0) = chart.backend_coord(&(0.03, 0.97));
+        let line_h = sz(18.0, s) as i32;
+        let pad = sz(5.0, s) as i32;
+        let diagonal = "dashed diagonal: perfectly calibrated";
+        let chars = self
+            .curves
+            .iter()
+            .map(|c| c.name.chars().count())
+            .chain([diagonal.chars().count()])
+            .max()
+            .unwrap_or(0);
+        let rows = self.curves.len() as i32 + 1;
+        let first = y0 + sz(6.0, s) as i32;
+        let frame = [
+            (x0 - pad, first - line_h / 2 - pad),
+            (
+                x0 + sz(34.0 + 6.6 * chars as f64, s) as i32 + pad,
+                first + line_h * (rows - 1) + line_h / 2 + pad,
+            ),
+        ];
+        root.draw(&Rectangle::new(frame, WHITE.mix(0.9).filled()))
+            .map_err(pe)?;
+        root.draw(&Rectangle::new(
+            frame,
+            RGBColor(0xbb, 0xbb, 0xbb).stroke_width(sz(1.0, s)),
+        ))
+        .map_err(pe)?;
+        let x1 = x0 + sz(28.0, s) as i32;
+        for (i, c) in self.curves.iter().enumerate() {
+            let (color, mark, dash) = series_style(i);
+            let y = first + line_h * i as i32;
             draw_path(
                 root,
                 &[(x0, y), (x1, y)],
@@ -135,10 +165,17 @@ impl Plot for ReliabilityPlot {
             ))
             .map_err(pe)?;
         }
-        let (x0, y0) = chart.backend_coord(&(0.55, 0.08));
+        let y = first + line_h * (rows - 1);
+        draw_path(
+            root,
+            &[(x0, y), (x1, y)],
+            RGBColor(0x88, 0x88, 0x88).stroke_width(sz(1.0, s)),
+            Some((6, 4)),
+            s,
+        )?;
         root.draw(&Text::new(
-            "dashed diagonal: perfectly calibrated".to_string(),
-            (x0, y0),
+            diagonal.to_string(),
+            (x1 + sz(6.0, s) as i32, y - sz(6.0, s) as i32),
             font(12.0, s),
         ))
         .map_err(pe)?;
