@@ -871,24 +871,31 @@ mod tests {
         fn pooled_gradient_kernels_match_the_gemm_path(
             seed in 0u64..10_000,
             batch in 1usize..4,
-            c_in in prop::sample::select(vec![8usize, 16, 32]),
+            c_in in prop::sample::select(vec![1usize, 8, 16, 32]),
             c_out in 1usize..6,
-            k in 1usize..6,
+            k in 1usize..8,
             extra_h in 0usize..9,
             extra_w in 0usize..9,
             relu in any::<bool>(),
             want_dx in any::<bool>(),
+            blank in any::<bool>(),
         ) {
             // c_in 8, 16 and 32: whole AVX2 vectors, and whole AVX-512
-            // vectors for 16 and 32; odd sizes, k up to 5 (the default
-            // network's conv2 and conv3 have 16 and 32 input channels).
+            // vectors for 16 and 32; c_in 1 (kernel taps in the lanes);
+            // odd sizes, k up to 7 (the default network's conv1, conv2 and
+            // conv3 have 1, 16 and 32 input channels).
             let (h, w) = (k + 1 + extra_h, k + 1 + extra_w);
             let g = Geometry { batch, c_in, h, w, c_out, k, relu, pool: true };
             let mut rng = SeededRng::new(seed);
             let mut rand = |n: usize| -> Vec<f32> {
                 (0..n).map(|_| rng.range_f64(-1.0, 1.0) as f32).collect()
             };
-            let (x, wt, b) = (rand(batch * g.in_len()), rand(c_out * g.patch()), rand(c_out));
+            let (mut x, wt, b) = (rand(batch * g.in_len()), rand(c_out * g.patch()), rand(c_out));
+            if blank {
+                // Mostly exact zeros (paper): tied maxima and ReLU zeros,
+                // where both paths follow the same stored arg-max.
+                x.iter_mut().for_each(|v| *v = if *v > 0.4 { 1.0 } else { 0.0 });
+            }
             let (out, idx) = forward_gemm(&g, &x, &wt, &b);
             let grad = rand(out.len());
             let mut dx_ref = want_dx.then(|| vec![0f32; x.len()]);

@@ -18,33 +18,47 @@
 //!   `(c_in, h, w)`. Non-zeros of one pool row are visited in a stride that
 //!   keeps consecutive updates on disjoint memory.
 //!
-//! The vectors run along the input channels, so the path takes blocks whose
+//! The vectors run along the input channels, so this takes blocks whose
 //! `c_in` is a multiple of the vector width (16 on AVX-512F, 8 on AVX2 +
-//! FMA): conv2 and conv3 of the default network. Results equal the GEMM
-//! path's to float rounding (tested in `conv.rs`); the sums are taken in a
-//! fixed order, so they do not depend on the thread count.
+//! FMA): conv2 and conv3 of the default network. With one input channel
+//! (conv1, `k <= 8`) the `k` taps of a kernel row sit in the lanes of one
+//! vector instead, the `k` rows' weight-gradient accumulators in registers
+//! (and, when asked, the input gradient updated a kernel row per vector).
+//! Results equal the GEMM path's to float rounding (tested in `conv.rs`,
+//! with and without exact ties); the sums are taken in a fixed order, so
+//! they do not depend on the thread count.
 
 use super::conv::Geometry;
 use super::direct::Isa;
 
-/// The instruction set this path runs `g` on, or `None` when it does not
-/// take the block (no pooling, `c_in` not a multiple of the vector width, or
-/// no supported instruction set).
-pub(crate) fn plan(g: &Geometry) -> Option<Isa> {
-    if !g.pool || g.c_in == 0 || g.c_out == 0 {
-        return None;
-    }
+/// Whether the path takes `g` on `isa` (the CPU check aside).
+fn takes(isa: Isa, g: &Geometry) -> bool {
     let (oh, ow) = g.out_hw();
-    if oh == 0 || ow == 0 {
-        return None;
+    if !g.pool || g.c_in == 0 || g.c_out == 0 || oh == 0 || ow == 0 {
+        return false;
     }
-    let isa = Isa::detect()?;
-    g.c_in.is_multiple_of(isa.lanes()).then_some(isa)
+    g.c_in.is_multiple_of(isa.lanes()) || (g.c_in == 1 && g.k <= MAX_TAPS_K)
 }
 
-/// Whether `isa` is on this CPU and [`plan`] could run `g` on it.
+/// Largest kernel side of the one-channel kernels.
+const MAX_TAPS_K: usize = 8;
+
+/// The instruction set this path runs `g` on (the best one of this CPU
+/// that takes it), or `None` when it does not take the block: no pooling,
+/// or `c_in` neither a multiple of the vector width nor 1 with `k <= 8`.
+pub(crate) fn plan(g: &Geometry) -> Option<Isa> {
+    let best = Isa::detect()?;
+    let mut candidates = vec![best];
+    #[cfg(target_arch = "x86_64")]
+    candidates.push(Isa::Avx2);
+    candidates
+        .into_iter()
+        .find(|isa| isa.available() && takes(*isa, g))
+}
+
+/// Whether `isa` is on this CPU and the path takes `g` on it.
 pub(crate) fn fits(isa: Isa, g: &Geometry) -> bool {
-    plan(g).is_some() && isa.available() && g.c_in.is_multiple_of(isa.lanes())
+    isa.available() && takes(isa, g)
 }
 
 /// A `len`-long slice of `buf` that starts on a 64-byte line, so vectors
@@ -99,23 +113,37 @@ pub(crate) fn backward_group(
     }
     let mut dwt = vec![0f32; w.len()];
     let mut db = vec![0f32; c_out];
+    let mut xpad = vec![0f32; if ci == 1 { per_in + 16 } else { 0 }];
+    let mut dxpad = vec![
+        0f32;
+        if ci == 1 && dx.is_some() {
+            per_in + 16
+        } else {
+            0
+        }
+    ];
     let (mut xh_buf, mut dxh_buf) = (Vec::new(), Vec::new());
-    let xh = aligned(&mut xh_buf, per_in);
+    let xh = aligned(&mut xh_buf, if ci > 1 { per_in } else { 0 });
     let dxh = aligned(&mut dxh_buf, if dx.is_some() { per_in } else { 0 });
     let mut nz: Vec<(f32, usize)> = Vec::with_capacity(oh * ow);
     // Pool columns visited `step` apart: conv columns at least k apart, so
     // the k-wide updates of consecutive non-zeros do not overlap.
     let step = k / 2 + 1;
     for s in first..first + count {
-        let planes: Vec<&[f32]> = x[s * per_in..][..per_in]
-            .chunks_exact(g.h * width)
-            .collect();
-        for (p, dst) in xh.chunks_exact_mut(ci).enumerate() {
-            for (d, plane) in dst.iter_mut().zip(&planes) {
-                *d = plane[p];
+        if ci > 1 {
+            let planes: Vec<&[f32]> = x[s * per_in..][..per_in]
+                .chunks_exact(g.h * width)
+                .collect();
+            for (p, dst) in xh.chunks_exact_mut(ci).enumerate() {
+                for (d, plane) in dst.iter_mut().zip(&planes) {
+                    *d = plane[p];
+                }
             }
+        } else {
+            xpad[..per_in].copy_from_slice(&x[s * per_in..][..per_in]);
         }
         dxh.fill(0.0);
+        dxpad.fill(0.0);
         for (m, db_m) in db.iter_mut().enumerate() {
             nz.clear();
             for pr in 0..oh {
@@ -130,7 +158,36 @@ pub(crate) fn backward_group(
                     }
                 }
             }
-            *db_m += nz.iter().fold(0f32, |a, (v, _)| a + v);
+            // Eight interleaved partial sums (one serial chain would cost
+            // an add latency per non-zero).
+            let mut part = [0f32; 8];
+            let chunks = nz.chunks_exact(8);
+            let rest: f32 = chunks.remainder().iter().map(|(v, _)| v).sum();
+            for c in chunks {
+                for (p, (v, _)) in part.iter_mut().zip(c) {
+                    *p += v;
+                }
+            }
+            *db_m += part.iter().sum::<f32>() + rest;
+            if ci == 1 {
+                // One channel: the k taps of a kernel row in the lanes of one
+                // vector, all k rows' accumulators in registers. Full-width
+                // vectors reach up to L - k values past a row's taps: the
+                // copies of the sample and its gradient are padded with L
+                // zeros, and the weight rows with zeros past k.
+                let wm = &w[m * k * k..][..k * k];
+                // SAFETY: `fits` checked the CPU and k <= 8 <= L; a listed
+                // offset y0 w + x0 plus (k - 1) w + L is at most h w - k + L
+                // <= per_in + L = xpad.len() = dxpad.len().
+                unsafe {
+                    let dst = &mut dwt[m * k * k..][..k * k];
+                    x86::weight_taps(isa, &nz, xpad.as_ptr(), width, k, dst);
+                    if dx.is_some() {
+                        x86::input_taps(isa, &nz, dxpad.as_mut_ptr(), width, k, wm);
+                    }
+                }
+                continue;
+            }
             for ky in 0..k {
                 let row = ky * width * ci;
                 let at = (m * k + ky) * kc;
@@ -150,6 +207,10 @@ pub(crate) fn backward_group(
         }
         if let Some(d) = dx.as_deref_mut() {
             let ds = &mut d[(s - first) * per_in..][..per_in];
+            if ci == 1 {
+                ds.copy_from_slice(&dxpad[..per_in]);
+                continue;
+            }
             for (c, plane) in ds.chunks_exact_mut(g.h * width).enumerate() {
                 for (v, src) in plane.iter_mut().zip(dxh.chunks_exact(ci)) {
                     *v = src[c];
@@ -230,6 +291,153 @@ mod x86 {
                     let d = p.add(j * V::L);
                     V::store(d, V::fma(gb, *wj, V::load(d)));
                 }
+            }
+        }
+    }
+
+    /// `dst[ky k + kx] += sum over nz of g x[off + ky w + kx]`: kernel row
+    /// `ky` in the first `K` lanes of accumulator `ky` (`K` independent FMA
+    /// chains; the non-zeros are summed in list order).
+    #[inline(always)]
+    unsafe fn taps<V: Lanes, const K: usize>(
+        nz: &[(f32, usize)],
+        x: *const f32,
+        w: usize,
+        dst: &mut [f32],
+    ) {
+        // SAFETY: the caller keeps every x + off + (K - 1) w + L in bounds.
+        unsafe {
+            let mut acc = [V::zero(); K];
+            for &(gv, off) in nz {
+                let gb = V::splat(gv);
+                let p = x.add(off);
+                for (ky, a) in acc.iter_mut().enumerate() {
+                    *a = V::fma(gb, V::load(p.add(ky * w)), *a);
+                }
+            }
+            let mut lanes = [0f32; 16];
+            for (ky, a) in acc.iter().enumerate() {
+                V::store(lanes.as_mut_ptr(), *a);
+                for (d, v) in dst[ky * K..(ky + 1) * K].iter_mut().zip(lanes) {
+                    *d += v;
+                }
+            }
+        }
+    }
+
+    /// `dx[off + ky w + kx] += g w[ky k + kx]` for every listed non-zero:
+    /// kernel row `ky` in the first `K` lanes of register `ky`, zeros past
+    /// them (so the lanes past the taps add zero).
+    #[inline(always)]
+    unsafe fn input_taps_k<V: Lanes, const K: usize>(
+        nz: &[(f32, usize)],
+        dx: *mut f32,
+        w: usize,
+        wm: &[f32],
+    ) {
+        // SAFETY: the caller keeps every dx + off + (K - 1) w + L in bounds.
+        unsafe {
+            let rows: [V; K] = std::array::from_fn(|ky| {
+                let mut lanes = [0f32; 16];
+                lanes[..K].copy_from_slice(&wm[ky * K..(ky + 1) * K]);
+                V::load(lanes.as_ptr())
+            });
+            for &(gv, off) in nz {
+                let gb = V::splat(gv);
+                let p = dx.add(off);
+                for (ky, r) in rows.iter().enumerate() {
+                    let d = p.add(ky * w);
+                    V::store(d, V::fma(gb, *r, V::load(d)));
+                }
+            }
+        }
+    }
+
+    /// [`taps`] for kernel sides 1 to 8 (a macro: one instance per side).
+    macro_rules! taps_for {
+        ($f:ident, $v:ty, $k:expr, $nz:expr, $x:expr, $w:expr, $dst:expr) => {
+            match $k {
+                1 => $f::<$v, 1>($nz, $x, $w, $dst),
+                2 => $f::<$v, 2>($nz, $x, $w, $dst),
+                3 => $f::<$v, 3>($nz, $x, $w, $dst),
+                4 => $f::<$v, 4>($nz, $x, $w, $dst),
+                5 => $f::<$v, 5>($nz, $x, $w, $dst),
+                6 => $f::<$v, 6>($nz, $x, $w, $dst),
+                7 => $f::<$v, 7>($nz, $x, $w, $dst),
+                8 => $f::<$v, 8>($nz, $x, $w, $dst),
+                k => panic!("kernel side {k} above 8"),
+            }
+        };
+    }
+
+    #[target_feature(enable = "avx512f")]
+    unsafe fn taps_avx512(nz: &[(f32, usize)], x: *const f32, w: usize, k: usize, dst: &mut [f32]) {
+        // SAFETY: forwarded from `weight_taps`.
+        unsafe { taps_for!(taps, V512, k, nz, x, w, dst) }
+    }
+
+    #[target_feature(enable = "avx2,fma")]
+    unsafe fn taps_avx2(nz: &[(f32, usize)], x: *const f32, w: usize, k: usize, dst: &mut [f32]) {
+        // SAFETY: forwarded from `weight_taps`.
+        unsafe { taps_for!(taps, V256, k, nz, x, w, dst) }
+    }
+
+    /// One output channel's weight gradient for a one-channel input: `dst`
+    /// (`k k` values) `+= sum g x[off + ky w + kx]` over the listed non-zeros.
+    ///
+    /// # Safety
+    /// The CPU has `isa`; `k` is at most 8 and `dst.len() == k k`; every
+    /// `x + off .. x + off + (k - 1) w + L` is readable (`L` the lanes).
+    pub(super) unsafe fn weight_taps(
+        isa: Isa,
+        nz: &[(f32, usize)],
+        x: *const f32,
+        w: usize,
+        k: usize,
+        dst: &mut [f32],
+    ) {
+        assert_eq!(dst.len(), k * k);
+        // SAFETY: forwarded from the caller.
+        unsafe {
+            match isa {
+                Isa::Avx512 => taps_avx512(nz, x, w, k, dst),
+                Isa::Avx2 => taps_avx2(nz, x, w, k, dst),
+            }
+        }
+    }
+
+    #[target_feature(enable = "avx512f")]
+    unsafe fn input_taps_avx512(nz: &[(f32, usize)], dx: *mut f32, w: usize, k: usize, wm: &[f32]) {
+        // SAFETY: forwarded from `input_taps`.
+        unsafe { taps_for!(input_taps_k, V512, k, nz, dx, w, wm) }
+    }
+
+    #[target_feature(enable = "avx2,fma")]
+    unsafe fn input_taps_avx2(nz: &[(f32, usize)], dx: *mut f32, w: usize, k: usize, wm: &[f32]) {
+        // SAFETY: forwarded from `input_taps`.
+        unsafe { taps_for!(input_taps_k, V256, k, nz, dx, w, wm) }
+    }
+
+    /// One output channel's input gradient for a one-channel input:
+    /// `dx[off + ky w + kx] += g wm[ky k + kx]` for the listed non-zeros.
+    ///
+    /// # Safety
+    /// The CPU has `isa`; `k` is at most 8 and `wm.len() == k k`; every
+    /// `dx + off .. dx + off + (k - 1) w + L` is writable (`L` the lanes).
+    pub(super) unsafe fn input_taps(
+        isa: Isa,
+        nz: &[(f32, usize)],
+        dx: *mut f32,
+        w: usize,
+        k: usize,
+        wm: &[f32],
+    ) {
+        assert_eq!(wm.len(), k * k);
+        // SAFETY: forwarded from the caller.
+        unsafe {
+            match isa {
+                Isa::Avx512 => input_taps_avx512(nz, dx, w, k, wm),
+                Isa::Avx2 => input_taps_avx2(nz, dx, w, k, wm),
             }
         }
     }
