@@ -125,7 +125,7 @@ impl Plot for LinesPlot {
                 mesh.y_label_formatter(&y_fmt);
             }
             mesh.draw().map_err(pe)?;
-            if let Some((x, label)) = &panel.marker {
+            if let Some((x, _)) = &panel.marker {
                 let a = chart.backend_coord(&(*x, y0));
                 let b = chart.backend_coord(&(*x, y1));
                 draw_path(
@@ -135,12 +135,6 @@ impl Plot for LinesPlot {
                     Some((4, 4)),
                     s,
                 )?;
-                root.draw(&Text::new(
-                    label.clone(),
-                    (b.0 + sz(4.0, s) as i32, b.1 + sz(4.0, s) as i32),
-                    font(12.0, s),
-                ))
-                .map_err(pe)?;
             }
             for (i, series) in panel.series.iter().enumerate() {
                 let (color, mark, dash) = series_style(i);
@@ -170,33 +164,78 @@ impl Plot for LinesPlot {
                         draw_mark(root, mark, *p, sz(3.5, s) as i32, color, s)?;
                     }
                 }
-                // Legend at the top right of the plotting area.
-                let n = panel.series.len() as i32;
-                let (lx, y) = if panel.legend_low {
+            }
+            // The marker's label and the legend go on paper-white boxes drawn
+            // after every series, so no curve crosses their text.
+            let pad = sz(4.0, s) as i32;
+            let boxed = |root: &DrawingArea<_, _>, frame: [(i32, i32); 2]| -> Result<(), String> {
+                root.draw(&Rectangle::new(frame, WHITE.mix(0.9).filled()))
+                    .map_err(pe)?;
+                root.draw(&Rectangle::new(
+                    frame,
+                    RGBColor(0xbb, 0xbb, 0xbb).stroke_width(sz(1.0, s)),
+                ))
+                .map_err(pe)
+            };
+            if let Some((x, label)) = &panel.marker {
+                let (mx, my) = chart.backend_coord(&(*x, y0 + (y1 - y0) * 0.45));
+                let (tx, ty) = (mx + sz(6.0, s) as i32, my - sz(7.0, s) as i32);
+                let w = sz(6.6 * label.chars().count() as f64, s) as i32;
+                boxed(
+                    root,
+                    [
+                        (tx - pad, ty - pad),
+                        (tx + w + pad, ty + sz(14.0, s) as i32 + pad),
+                    ],
+                )?;
+                root.draw(&Text::new(label.clone(), (tx, ty), font(12.0, s)))
+                    .map_err(pe)?;
+            }
+            let n = panel.series.len() as i32;
+            if n > 0 {
+                let line_h = sz(17.0, s) as i32;
+                let (lx, top) = if panel.legend_low {
                     let (lx, ly) = chart.backend_coord(&(x0 + (x1 - x0) * 0.45, y0));
-                    (
-                        lx,
-                        ly - sz(14.0, s) as i32 - sz(17.0, s) as i32 * (n - 1 - i as i32),
-                    )
+                    (lx, ly - sz(14.0, s) as i32 - line_h * (n - 1))
                 } else {
                     let (lx, ly) = chart.backend_coord(&(x0 + (x1 - x0) * 0.45, y1));
-                    (lx, ly + sz(14.0, s) as i32 + sz(17.0, s) as i32 * i as i32)
+                    (lx, ly + sz(14.0, s) as i32)
                 };
-                let lx1 = lx + sz(26.0, s) as i32;
-                draw_path(
+                let chars = panel
+                    .series
+                    .iter()
+                    .map(|x| x.name.chars().count())
+                    .max()
+                    .unwrap_or(0);
+                boxed(
                     root,
-                    &[(lx, y), (lx1, y)],
-                    color.stroke_width(sz(2.0, s)),
-                    dash,
-                    s,
+                    [
+                        (lx - pad, top - line_h / 2 - pad),
+                        (
+                            lx + sz(32.0 + 6.6 * chars as f64, s) as i32 + pad,
+                            top + line_h * (n - 1) + line_h / 2 + pad,
+                        ),
+                    ],
                 )?;
-                draw_mark(root, mark, ((lx + lx1) / 2, y), sz(3.5, s) as i32, color, s)?;
-                root.draw(&Text::new(
-                    series.name.clone(),
-                    (lx1 + sz(6.0, s) as i32, y - sz(6.0, s) as i32),
-                    font(12.0, s),
-                ))
-                .map_err(pe)?;
+                for (i, series) in panel.series.iter().enumerate() {
+                    let (color, mark, dash) = series_style(i);
+                    let y = top + line_h * i as i32;
+                    let lx1 = lx + sz(26.0, s) as i32;
+                    draw_path(
+                        root,
+                        &[(lx, y), (lx1, y)],
+                        color.stroke_width(sz(2.0, s)),
+                        dash,
+                        s,
+                    )?;
+                    draw_mark(root, mark, ((lx + lx1) / 2, y), sz(3.5, s) as i32, color, s)?;
+                    root.draw(&Text::new(
+                        series.name.clone(),
+                        (lx1 + sz(6.0, s) as i32, y - sz(6.0, s) as i32),
+                        font(12.0, s),
+                    ))
+                    .map_err(pe)?;
+                }
             }
         }
         Ok(placed)
