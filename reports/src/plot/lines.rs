@@ -1,7 +1,10 @@
 //! Lines over a numeric axis, in one or more panels side by side: the IoU
 //! sweep, the training curves and the comparison of evaluations.
 
-use super::{Placed, Plot, draw_mark, draw_path, font, mesh_style, pct_label, pe, sz};
+use super::{
+    Placed, Plot, draw_legend, draw_mark, draw_paper_box, draw_path, font, mesh_style, pct_label,
+    pe, series_rows, sz,
+};
 use crate::palette::{INK, series_style};
 use plotters::coord::Shift;
 use plotters::prelude::*;
@@ -167,76 +170,36 @@ impl Plot for LinesPlot {
             }
             // The marker's label and the legend go on paper-white boxes drawn
             // after every series, so no curve crosses their text.
-            let pad = sz(4.0, s) as i32;
-            let boxed = |root: &DrawingArea<_, _>, frame: [(i32, i32); 2]| -> Result<(), String> {
-                root.draw(&Rectangle::new(frame, WHITE.mix(0.9).filled()))
-                    .map_err(pe)?;
-                root.draw(&Rectangle::new(
-                    frame,
-                    RGBColor(0xbb, 0xbb, 0xbb).stroke_width(sz(1.0, s)),
-                ))
-                .map_err(pe)
-            };
             if let Some((x, label)) = &panel.marker {
                 let (mx, my) = chart.backend_coord(&(*x, y0 + (y1 - y0) * 0.45));
                 let (tx, ty) = (mx + sz(6.0, s) as i32, my - sz(7.0, s) as i32);
-                let w = sz(6.6 * label.chars().count() as f64, s) as i32;
-                boxed(
+                let (pad, w) = (
+                    sz(4.0, s) as i32,
+                    sz(6.6 * label.chars().count() as f64, s) as i32,
+                );
+                draw_paper_box(
                     root,
                     [
                         (tx - pad, ty - pad),
                         (tx + w + pad, ty + sz(14.0, s) as i32 + pad),
                     ],
+                    s,
                 )?;
                 root.draw(&Text::new(label.clone(), (tx, ty), font(12.0, s)))
                     .map_err(pe)?;
             }
-            let n = panel.series.len() as i32;
-            if n > 0 {
-                let line_h = sz(17.0, s) as i32;
-                let (lx, top) = if panel.legend_low {
-                    let (lx, ly) = chart.backend_coord(&(x0 + (x1 - x0) * 0.45, y0));
-                    (lx, ly - sz(14.0, s) as i32 - line_h * (n - 1))
-                } else {
-                    let (lx, ly) = chart.backend_coord(&(x0 + (x1 - x0) * 0.45, y1));
-                    (lx, ly + sz(14.0, s) as i32)
-                };
-                let chars = panel
-                    .series
-                    .iter()
-                    .map(|x| x.name.chars().count())
-                    .max()
-                    .unwrap_or(0);
-                boxed(
-                    root,
-                    [
-                        (lx - pad, top - line_h / 2 - pad),
-                        (
-                            lx + sz(32.0 + 6.6 * chars as f64, s) as i32 + pad,
-                            top + line_h * (n - 1) + line_h / 2 + pad,
-                        ),
-                    ],
-                )?;
-                for (i, series) in panel.series.iter().enumerate() {
-                    let (color, mark, dash) = series_style(i);
-                    let y = top + line_h * i as i32;
-                    let lx1 = lx + sz(26.0, s) as i32;
-                    draw_path(
-                        root,
-                        &[(lx, y), (lx1, y)],
-                        color.stroke_width(sz(2.0, s)),
-                        dash,
-                        s,
-                    )?;
-                    draw_mark(root, mark, ((lx + lx1) / 2, y), sz(3.5, s) as i32, color, s)?;
-                    root.draw(&Text::new(
-                        series.name.clone(),
-                        (lx1 + sz(6.0, s) as i32, y - sz(6.0, s) as i32),
-                        font(12.0, s),
-                    ))
-                    .map_err(pe)?;
-                }
-            }
+            let rows = series_rows(panel.series.iter().map(|x| x.name.as_str()));
+            let n = rows.len() as i32;
+            let line_h = sz(17.0, s) as i32;
+            let first_y = if panel.legend_low {
+                let (_, ly) = chart.backend_coord(&(x0, y0));
+                ly - sz(14.0, s) as i32 - line_h * (n - 1)
+            } else {
+                let (_, ly) = chart.backend_coord(&(x0, y1));
+                ly + sz(14.0, s) as i32
+            };
+            let (lx, _) = chart.backend_coord(&(x0 + (x1 - x0) * 0.45, y0));
+            draw_legend(root, &rows, (lx, first_y), line_h, 3.5, s)?;
         }
         Ok(placed)
     }

@@ -235,6 +235,116 @@ pub fn draw_path<DB: DrawingBackend>(
     }
 }
 
+/// Fills `frame` (two pixel corners) paper-white with a light grey edge:
+/// under a legend or a label, it keeps the text readable where curves pass.
+pub fn draw_paper_box<DB: DrawingBackend>(
+    area: &DrawingArea<DB, Shift>,
+    frame: [(i32, i32); 2],
+    s: f64,
+) -> std::result::Result<(), String> {
+    area.draw(&Rectangle::new(frame, WHITE.mix(0.9).filled()))
+        .map_err(pe)?;
+    area.draw(&Rectangle::new(
+        frame,
+        RGBColor(0xbb, 0xbb, 0xbb).stroke_width(sz(1.0, s)),
+    ))
+    .map_err(pe)
+}
+
+/// One row of a legend: a line sample in the series' style and its name.
+pub struct LegendRow {
+    /// Text beside the sample.
+    pub name: String,
+    /// Line and mark colour.
+    pub color: RGBColor,
+    /// Mark drawn at the middle of the sample, if any.
+    pub mark: Option<Mark>,
+    /// Dash pattern of the sample.
+    pub dash: Dash,
+    /// Line width at scale 1.
+    pub width: f64,
+}
+
+/// Draws a legend on a paper-white box, after the curves so none crosses
+/// it: `rows` top to bottom, `line_h` pixels apart, the first centred on
+/// height `first_y`, samples starting at `x`.
+pub fn draw_legend<DB: DrawingBackend>(
+    area: &DrawingArea<DB, Shift>,
+    rows: &[LegendRow],
+    (x, first_y): (i32, i32),
+    line_h: i32,
+    mark_r: f64,
+    s: f64,
+) -> std::result::Result<(), String> {
+    if rows.is_empty() {
+        return Ok(());
+    }
+    let pad = sz(5.0, s) as i32;
+    let chars = rows
+        .iter()
+        .map(|r| r.name.chars().count())
+        .max()
+        .unwrap_or(0);
+    let last_y = first_y + line_h * (rows.len() as i32 - 1);
+    draw_paper_box(
+        area,
+        [
+            (x - pad, first_y - line_h / 2 - pad),
+            (
+                x + sz(34.0 + 6.6 * chars as f64, s) as i32 + pad,
+                last_y + line_h / 2 + pad,
+            ),
+        ],
+        s,
+    )?;
+    let x1 = x + sz(28.0, s) as i32;
+    for (i, row) in rows.iter().enumerate() {
+        let y = first_y + line_h * i as i32;
+        draw_path(
+            area,
+            &[(x, y), (x1, y)],
+            row.color.stroke_width(sz(row.width, s)),
+            row.dash,
+            s,
+        )?;
+        if let Some(mark) = row.mark {
+            draw_mark(
+                area,
+                mark,
+                ((x + x1) / 2, y),
+                sz(mark_r, s) as i32,
+                row.color,
+                s,
+            )?;
+        }
+        area.draw(&Text::new(
+            row.name.clone(),
+            (x1 + sz(6.0, s) as i32, y - sz(6.0, s) as i32),
+            font(12.0, s),
+        ))
+        .map_err(pe)?;
+    }
+    Ok(())
+}
+
+/// The legend rows of series named `names`, in the palette's series styles.
+pub fn series_rows<'a>(names: impl IntoIterator<Item = &'a str>) -> Vec<LegendRow> {
+    names
+        .into_iter()
+        .enumerate()
+        .map(|(i, name)| {
+            let (color, mark, dash) = crate::palette::series_style(i);
+            LegendRow {
+                name: name.to_string(),
+                color,
+                mark: Some(mark),
+                dash,
+                width: 2.0,
+            }
+        })
+        .collect()
+}
+
 /// `0.25` as `"25%"`.
 pub fn pct_label(v: &f64) -> String {
     format!("{:.0}%", v * 100.0)

@@ -2,7 +2,10 @@
 //! with its operating point and the bootstrap interval box around it; or
 //! several evaluations overlaid in one panel.
 
-use super::{Placed, Plot, draw_mark, draw_path, font, mesh_style, pct_label, pe, sz};
+use super::{
+    Placed, Plot, draw_legend, draw_mark, draw_path, font, mesh_style, pct_label, pe, series_rows,
+    sz,
+};
 use crate::palette::{BAND, INK, series_style};
 use plotters::coord::Shift;
 use plotters::prelude::*;
@@ -201,45 +204,9 @@ fn draw_panel<DB: DrawingBackend>(
     if several {
         let (x0, y0) = chart.backend_coord(&(0.03, 0.30));
         let line_h = sz(18.0, s) as i32;
-        // A paper-white box under the legend keeps it readable where curves pass.
-        let chars = panel
-            .series
-            .iter()
-            .map(|x| x.name.chars().count())
-            .max()
-            .unwrap_or(0);
-        let pad = sz(5.0, s) as i32;
-        let top = y0 - line_h * (panel.series.len() as i32 - 1) - line_h / 2 - pad;
-        let right = x0 + sz(34.0 + 6.6 * chars as f64, s) as i32 + pad;
-        root.draw(&Rectangle::new(
-            [(x0 - pad, top), (right, y0 + line_h / 2 + pad)],
-            WHITE.mix(0.9).filled(),
-        ))
-        .map_err(pe)?;
-        root.draw(&Rectangle::new(
-            [(x0 - pad, top), (right, y0 + line_h / 2 + pad)],
-            RGBColor(0xbb, 0xbb, 0xbb).stroke_width(sz(1.0, s)),
-        ))
-        .map_err(pe)?;
-        for (i, series) in panel.series.iter().enumerate() {
-            let (color, mark, dash) = series_style(i);
-            let y = y0 - line_h * (panel.series.len() as i32 - 1 - i as i32);
-            let x1 = x0 + sz(28.0, s) as i32;
-            draw_path(
-                root,
-                &[(x0, y), (x1, y)],
-                color.stroke_width(sz(2.0, s)),
-                dash,
-                s,
-            )?;
-            draw_mark(root, mark, ((x0 + x1) / 2, y), sz(3.0, s) as i32, color, s)?;
-            root.draw(&Text::new(
-                series.name.clone(),
-                (x1 + sz(6.0, s) as i32, y - sz(6.0, s) as i32),
-                font(12.0, s),
-            ))
-            .map_err(pe)?;
-        }
+        let rows = series_rows(panel.series.iter().map(|x| x.name.as_str()));
+        let first_y = y0 - line_h * (rows.len() as i32 - 1);
+        draw_legend(root, &rows, (x0, first_y), line_h, 3.0, s)?;
     }
     Ok(placed)
 }

@@ -2,7 +2,10 @@
 //! detections that were right, with the diagonal of perfect calibration, and
 //! below it how many detections fell in each bin.
 
-use super::{Placed, Plot, draw_mark, draw_path, font, mesh_style, pct_label, pe, sz};
+use super::{
+    LegendRow, Placed, Plot, draw_legend, draw_mark, draw_path, mesh_style, pct_label, pe,
+    series_rows, sz,
+};
 use crate::palette::{INK, series_style};
 use plotters::coord::Shift;
 use plotters::prelude::*;
@@ -117,68 +120,24 @@ impl Plot for ReliabilityPlot {
                 });
             }
         }
-        // Legend, top left, drawn after every curve on a paper-white box so no
-        // curve crosses its text; the dashed diagonal is its last entry.
+        // Legend, top left, after every curve; the dashed diagonal is its last row.
         let (x0, y0) = chart.backend_coord(&(0.03, 0.97));
-        let line_h = sz(18.0, s) as i32;
-        let pad = sz(5.0, s) as i32;
-        let diagonal = "dashed diagonal: perfectly calibrated";
-        let chars = self
-            .curves
-            .iter()
-            .map(|c| c.name.chars().count())
-            .chain([diagonal.chars().count()])
-            .max()
-            .unwrap_or(0);
-        let rows = self.curves.len() as i32 + 1;
-        let first = y0 + sz(6.0, s) as i32;
-        let frame = [
-            (x0 - pad, first - line_h / 2 - pad),
-            (
-                x0 + sz(34.0 + 6.6 * chars as f64, s) as i32 + pad,
-                first + line_h * (rows - 1) + line_h / 2 + pad,
-            ),
-        ];
-        root.draw(&Rectangle::new(frame, WHITE.mix(0.9).filled()))
-            .map_err(pe)?;
-        root.draw(&Rectangle::new(
-            frame,
-            RGBColor(0xbb, 0xbb, 0xbb).stroke_width(sz(1.0, s)),
-        ))
-        .map_err(pe)?;
-        let x1 = x0 + sz(28.0, s) as i32;
-        for (i, c) in self.curves.iter().enumerate() {
-            let (color, mark, dash) = series_style(i);
-            let y = first + line_h * i as i32;
-            draw_path(
-                root,
-                &[(x0, y), (x1, y)],
-                color.stroke_width(sz(2.0, s)),
-                dash,
-                s,
-            )?;
-            draw_mark(root, mark, ((x0 + x1) / 2, y), sz(4.0, s) as i32, color, s)?;
-            root.draw(&Text::new(
-                c.name.clone(),
-                (x1 + sz(6.0, s) as i32, y - sz(6.0, s) as i32),
-                font(12.0, s),
-            ))
-            .map_err(pe)?;
-        }
-        let y = first + line_h * (rows - 1);
-        draw_path(
+        let mut rows = series_rows(self.curves.iter().map(|c| c.name.as_str()));
+        rows.push(LegendRow {
+            name: "dashed diagonal: perfectly calibrated".into(),
+            color: RGBColor(0x88, 0x88, 0x88),
+            mark: None,
+            dash: Some((6, 4)),
+            width: 1.0,
+        });
+        draw_legend(
             root,
-            &[(x0, y), (x1, y)],
-            RGBColor(0x88, 0x88, 0x88).stroke_width(sz(1.0, s)),
-            Some((6, 4)),
+            &rows,
+            (x0, y0 + sz(6.0, s) as i32),
+            sz(18.0, s) as i32,
+            4.0,
             s,
         )?;
-        root.draw(&Text::new(
-            diagonal.to_string(),
-            (x1 + sz(6.0, s) as i32, y - sz(6.0, s) as i32),
-            font(12.0, s),
-        ))
-        .map_err(pe)?;
         // Counts per bin, first curve's bins (the counts do not change with calibration
         // only when bins are the same; each curve gets its own bars side by side).
         let max = self
