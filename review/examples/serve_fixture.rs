@@ -1,7 +1,8 @@
 //! Serves a generated site for the browser benchmark and for trying the page:
 //! `cargo run -p symtrust-review --release --example serve_fixture -- [--boxes N]
 //! [--paper a1|a3] [--out DIR]`. Prints one JSON line (`url`, `site`, `sheet`) and
-//! serves until standard input closes.
+//! serves until standard input closes. When `--out DIR` already holds a site
+//! (from an earlier run), it is served as it is: a restarted server.
 //!
 //! The sheet is drawn by the synthetic plant generator at 200 dpi (A1 is 6622 x
 //! 4677 px). With `--boxes N` the generator's symbols are proposed as they are
@@ -35,6 +36,14 @@ fn main() {
     };
     let tmp = tempfile::tempdir().expect("temporary folder");
     let root = get("--out").map_or_else(|| tmp.path().join("site"), std::path::PathBuf::from);
+    if root.join("site.toml").exists() {
+        let site = Site::open(&root).expect("site");
+        let store = LabelStore::new(&site);
+        let id = store.sheet_ids().expect("sheets").remove(0);
+        let doc = store.load(&id).expect("document");
+        serve(site, &root, &doc);
+        return;
+    }
     let sc = SynthConfig::new(DraftingStyle::A, 5);
     let classes: Vec<ClassSpec> = synth::classes(DraftingStyle::A)
         .into_iter()
@@ -99,17 +108,22 @@ fn main() {
         "2026-12-01T00:00:00Z",
     )
     .expect("merge");
-    store.save(&merged, "bench").expect("save");
+    let saved = store.save(&merged, "bench").expect("save");
+    serve(site, &root, &saved);
+}
+
+/// Serves `site` until standard input closes, after printing the JSON line.
+fn serve(site: Site, root: &std::path::Path, doc: &symtrust_labels::document::LabelDocument) {
     let server = ReviewServer::start(site, ReviewSettings::loopback("bench")).expect("server");
     println!(
         "{}",
         serde_json::json!({
             "url": server.url(),
             "site": root,
-            "sheet": sheet.id,
-            "boxes": merged.symbols.len(),
-            "width": merged.sheet.width,
-            "height": merged.sheet.height,
+            "sheet": doc.sheet.id,
+            "boxes": doc.symbols.len(),
+            "width": doc.sheet.width,
+            "height": doc.sheet.height,
         })
     );
     let mut sink = Vec::new();
