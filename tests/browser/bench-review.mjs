@@ -14,6 +14,12 @@
 //
 //   cargo build -p symtrust-review --release --example serve_fixture
 //   node tests/browser/bench-review.mjs
+//
+// A peer run of an older build side by side: SERVE_FIXTURE=path/to/its/serve_fixture
+// PEER=1 node tests/browser/bench-review.mjs prints the same figures as JSON and
+// writes no report ("warm" is then a second opening on the same server, and the
+// steps an older server cannot do, waiting for its tile pack and a restart on
+// the same site, are left out).
 import { chromium } from "playwright-core";
 import { spawn } from "node:child_process";
 import fs from "node:fs";
@@ -25,6 +31,7 @@ const root = path.resolve(path.dirname(new URL(import.meta.url).pathname), "../.
 const exe = process.env.SERVE_FIXTURE || path.join(root, "target/release/examples/serve_fixture");
 const chromiumPath = process.env.CHROMIUM || "/usr/bin/chromium";
 const VIEWPORT = { width: 1600, height: 1000 };
+const PEER = process.env.PEER === "1";
 
 function pct(xs, p) {
   const s = [...xs].sort((a, b) => a - b);
@@ -43,6 +50,7 @@ function stop(fx) {
   return new Promise((resolve) => { fx.child.once("exit", resolve); fx.child.stdin.end(); });
 }
 async function packed(site) {
+  if (PEER) { await sleep(3000); return; }
   const dir = path.join(site, "cache/review-tiles");
   for (let i = 0; i < 1200; i++) {
     if (fs.existsSync(dir) && fs.readdirSync(dir).some((f) => f.endsWith(".tiles"))) return;
@@ -106,12 +114,12 @@ async function run(browser, boxes) {
   await page.waitForTimeout(500);
   const whole = await gapsDuring(page, () => panAndZoom(page, cx, cy));
   // About one CSS pixel per sheet pixel, around the middle of the sheet.
-  await page.evaluate(() => { const S = window.__review; S.scale = 1; S.ox = S.local.sheet.width / 2 - VIEW.w / 2; S.oy = S.local.sheet.height / 2 - VIEW.h / 2; requestDraw(); });
+  await page.evaluate(() => { const S = window.__review; S.scale = 1; const c = document.getElementById("canvas"); S.ox = S.local.sheet.width / 2 - c.clientWidth / 2; S.oy = S.local.sheet.height / 2 - c.clientHeight / 2; requestDraw(); });
   await page.waitForTimeout(1500);
   const near = await gapsDuring(page, () => panAndZoom(page, cx, cy));
   // Halfway: 0.45 CSS px per sheet pixel, too large for the frame cache, every
   // tile in view scaled down.
-  await page.evaluate(() => { const S = window.__review; S.scale = 0.45; S.ox = S.local.sheet.width / 2 - VIEW.w / 2 / 0.45; S.oy = S.local.sheet.height / 2 - VIEW.h / 2 / 0.45; requestDraw(); });
+  await page.evaluate(() => { const S = window.__review; S.scale = 0.45; const c = document.getElementById("canvas"); S.ox = S.local.sheet.width / 2 - c.clientWidth / 2 / 0.45; S.oy = S.local.sheet.height / 2 - c.clientHeight / 2 / 0.45; requestDraw(); });
   await page.waitForTimeout(1500);
   const half = await gapsDuring(page, () => panAndZoom(page, cx, cy));
   await page.keyboard.press("Tab");
@@ -121,10 +129,13 @@ async function run(browser, boxes) {
   await warm.context.close();
   await stop(fx);
   // Restart: a new server on the same site reads the tile pack from disk.
-  fx = await fixture(["--out", site]);
-  const restart = await open(browser, fx);
-  await restart.context.close();
-  await stop(fx);
+  let restart = { first: NaN, sharp: NaN, wall: NaN };
+  if (!PEER) {
+    fx = await fixture(["--out", site]);
+    restart = await open(browser, fx);
+    await restart.context.close();
+    await stop(fx);
+  }
   fs.rmSync(out, { recursive: true, force: true });
   const gap = (g) => ({ drawP95: pct(g.frames, 95), drawMax: Math.max(...g.frames), gapP50: pct(g.gaps, 50), gapP95: pct(g.gaps, 95), n: g.gaps.length, scale: g.scale });
   return {
@@ -195,6 +206,7 @@ console.log(JSON.stringify(kb));
 const loadAfter = os.loadavg();
 const version = browser.version();
 await browser.close();
+if (PEER) process.exit(0);
 
 const f = (x) => x.toFixed(1);
 const la = (l) => l.map((x) => x.toFixed(2)).join(", ");
