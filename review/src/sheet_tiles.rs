@@ -5,8 +5,9 @@
 //! its tile pack on disk ([`crate::tile_cache`]), or from its pyramid built now
 //! (decoding the sheet); a built pyramid is packed right after, in the
 //! background, and the pack stored for the next start. When the server starts,
-//! [`TileStore::prepare_all`] does this for every sheet, the most recently
-//! labelled first, so that a sheet is usually ready before anyone opens it.
+//! [`TileStore::prepare_all`] does this for the [`PREPARED_AHEAD`] most
+//! recently labelled sheets, so that a sheet is usually ready before anyone
+//! opens it.
 //! Sheets are kept in memory for the [`KEPT`] most recently used only.
 
 use crate::pyramid::{Pyramid, PyramidInfo};
@@ -21,6 +22,11 @@ use symtrust_labels::store::LabelStore;
 
 /// Sheets whose tiles are kept in memory.
 pub const KEPT: usize = 3;
+
+/// Sheets whose tiles are made when the server starts (the most recently
+/// labelled); others are made when first opened. A pack takes about as much
+/// disk as its sheet file, so a site of many sheets is not doubled at once.
+pub const PREPARED_AHEAD: usize = 20;
 
 type Built = Option<Result<Arc<Pyramid>, String>>;
 
@@ -180,9 +186,10 @@ impl TileStore {
         Ok(Tiles::Built(built.clone().expect("set above")?))
     }
 
-    /// Makes the tiles of every sheet of `store` ahead of use: the [`KEPT`] most
-    /// recently labelled into memory (and their packs onto disk), the rest onto
-    /// disk only. Blocks; run it on a thread of its own.
+    /// Makes the tiles of the [`PREPARED_AHEAD`] most recently labelled sheets
+    /// of `store` ahead of use: the first [`KEPT`] into memory (and their packs
+    /// onto disk), the rest onto disk only. Blocks; run it on a thread of its
+    /// own.
     pub fn prepare_all(&self, store: &LabelStore) {
         let Ok(ids) = store.sheet_ids() else { return };
         let changed = |id: &String| {
@@ -194,7 +201,7 @@ impl TileStore {
             ids.into_iter().map(|id| (changed(&id), id)).collect();
         // Most recently changed first; ties in list order.
         ids.sort_by(|a, b| b.0.cmp(&a.0).then_with(|| a.1.cmp(&b.1)));
-        for (n, (_, id)) in ids.iter().enumerate() {
+        for (n, (_, id)) in ids.iter().take(PREPARED_AHEAD).enumerate() {
             let Ok(doc) = store.load(id) else { continue };
             if n < KEPT {
                 let entry = self

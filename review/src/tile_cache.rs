@@ -23,6 +23,11 @@ pub const MAGIC: &[u8] = b"symtrust review tiles 1\n";
 /// Folder of the tile packs, relative to the site root.
 pub const CACHE_DIR: &str = "cache/review-tiles";
 
+/// What the folder is, for whoever finds it.
+const NOTE: &str = "Tiles of the site's sheets for `symtrust review`, one file per sheet named by the \
+SHA-256 of the sheet file. Nothing here is label data: delete the folder at any time and the \
+review server makes the files again when it needs them.\n";
+
 const PNG_SIGNATURE: &[u8] = &[0x89, b'P', b'N', b'G', 0x0d, 0x0a, 0x1a, 0x0a];
 
 /// A sheet's tiles, encoded, in memory.
@@ -132,6 +137,10 @@ impl PackedTiles {
     pub fn store(&self, path: &Path) -> symtrust_labels::Result<()> {
         if let Some(dir) = path.parent() {
             std::fs::create_dir_all(dir).map_err(|e| symtrust_labels::LabelError::io(dir, e))?;
+            let note = dir.join("README.txt");
+            if !note.exists() {
+                write_atomic(&note, NOTE.as_bytes())?;
+            }
         }
         write_atomic(path, &self.to_bytes())
     }

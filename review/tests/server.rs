@@ -612,6 +612,8 @@ fn tiles_are_made_ahead_and_kept_on_disk_for_the_next_start() {
         std::thread::sleep(Duration::from_millis(50));
     }
     server.stop();
+    let note = std::fs::read_to_string(pack.parent().unwrap().join("README.txt")).unwrap();
+    assert!(note.contains("Nothing here is label data"), "{note}");
     let stored = PackedTiles::load(&pack).expect("a valid pack");
     assert_eq!(stored.info(), &expected.info());
     // A new server answers from the pack, even with the sheet file gone (so it
