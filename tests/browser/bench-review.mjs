@@ -238,7 +238,7 @@ ${open3}
   waits (the thread that makes every sheet's tiles at start and the page's request
   share that work).
 - *warm*: the same server once it has made the sheet's tiles by itself (it does for
-  every sheet after starting, the most recently labelled first), a fresh page.
+  the 20 most recently labelled sheets after starting), a fresh page.
 - *restart*: a new server on the same site: the tiles come from the pack on disk
   (\`cache/review-tiles/<sha256>.tiles\`), nothing is decoded.
 - *first view*: the \`symtrust-first-view\` mark: the whole sheet drawn from the
