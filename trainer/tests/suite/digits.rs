@@ -11,12 +11,18 @@
 //!
 //! What this test chooses, and why: images are upsampled 4x (nearest
 //! neighbour, 32 x 32) inside a 2-pixel paper border, a 36 x 36 window instead
-//! of the site default 100, because the stock Candle kernels train the default
-//! network at about 24 windows/s on two cores at 100 x 100 and CI has minutes,
-//! not an hour. 36 is the smallest window near 32 that the default network
-//! sees whole (32 -> 16 -> 12 -> 6 -> 4 -> 2); the default layer widths,
-//! kernels, hidden size and dropout are kept. The last 90 images of the training half are used for
-//! early stopping, so the test half is never seen before the final score.
+//! of the site default 100, so that five trainings take seconds. 36 is the
+//! smallest window near 32 that the default network sees whole
+//! (32 -> 16 -> 12 -> 6 -> 4 -> 2); the default layer widths, kernels, hidden
+//! size and dropout are kept. The last 90 images of the training half are used
+//! for early stopping, so the test half is never seen before the final score.
+//!
+//! One training's held-out accuracy moves by a few points with the seed (0.93
+//! to 0.98 measured over seeds 1-5 at the earlier settings, mostly from early
+//! stopping on only 90 images), and the same seed rounds differently on
+//! another instruction set (AVX-512 or AVX2 kernels). So five seeds are
+//! trained, and the **median** of their accuracies must reach 0.97: one
+//! unlucky run does not fail the test, a worse network does.
 
 use symtrust_labels::site::ModelSettings;
 use symtrust_trainer::data::DataSource;
@@ -70,28 +76,38 @@ fn digits_held_out_accuracy_reaches_the_scikit_learn_example() {
         },
     };
     let arch = Architecture::from_settings(&ModelSettings::default(), SIDE, 10).unwrap();
-    let opts = TrainOptions {
-        epochs: 20,
-        batch_size: 16,
-        learning_rate: 2e-3,
-        weight_decay: 1e-4,
-        patience: 5,
-        seed: 1,
-        augment: true,
-    };
-    let outcome = train(&data, &arch, &opts, None, false, &mut Silent).unwrap();
-    let clf = Classifier::from_network(outcome.network, data.classes.clone()).unwrap();
     let windows: Vec<&[u8]> = test_half.iter().map(|s| s.pixels.as_slice()).collect();
-    let probs = clf.classify(&windows).unwrap();
-    let right = probs
-        .iter()
-        .zip(test_half)
-        .filter(|(p, s)| symtrust_trainer::train::argmax(p) == s.class)
-        .count();
-    let accuracy = right as f64 / test_half.len() as f64;
-    eprintln!(
-        "digits: held-out accuracy {accuracy:.4} after {} epochs",
-        outcome.epochs_run
+    let mut accuracies: Vec<f64> = (1..=5)
+        .map(|seed| {
+            let opts = TrainOptions {
+                epochs: 40,
+                batch_size: 16,
+                learning_rate: 1e-3,
+                weight_decay: 1e-4,
+                patience: 10,
+                seed,
+                augment: true,
+            };
+            let outcome = train(&data, &arch, &opts, None, false, &mut Silent).unwrap();
+            let clf = Classifier::from_network(outcome.network, data.classes.clone()).unwrap();
+            let probs = clf.classify(&windows).unwrap();
+            let right = probs
+                .iter()
+                .zip(test_half)
+                .filter(|(p, s)| symtrust_trainer::train::argmax(p) == s.class)
+                .count();
+            let accuracy = right as f64 / test_half.len() as f64;
+            eprintln!(
+                "digits: seed {seed}, held-out accuracy {accuracy:.4} after {} epochs",
+                outcome.epochs_run
+            );
+            accuracy
+        })
+        .collect();
+    accuracies.sort_by(f64::total_cmp);
+    let median = accuracies[2];
+    assert!(
+        median >= 0.97,
+        "median held-out accuracy of five seeds {median:.4} < 0.97 ({accuracies:?})"
     );
-    assert!(accuracy >= 0.97, "held-out accuracy {accuracy:.4} < 0.97");
 }
