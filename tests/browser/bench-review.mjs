@@ -117,7 +117,7 @@ async function run(browser, boxes) {
   await page.evaluate(() => { const S = window.__review; S.scale = 1; const c = document.getElementById("canvas"); S.ox = S.local.sheet.width / 2 - c.clientWidth / 2; S.oy = S.local.sheet.height / 2 - c.clientHeight / 2; requestDraw(); });
   await page.waitForTimeout(1500);
   const near = await gapsDuring(page, () => panAndZoom(page, cx, cy));
-  // Halfway: 0.45 CSS px per sheet pixel, too large for the frame cache, every
+  // Halfway: 0.45 CSS px per sheet pixel, about a fifth of the sheet in view, every
   // tile in view scaled down.
   await page.evaluate(() => { const S = window.__review; S.scale = 0.45; const c = document.getElementById("canvas"); S.ox = S.local.sheet.width / 2 - c.clientWidth / 2 / 0.45; S.oy = S.local.sheet.height / 2 - c.clientHeight / 2 / 0.45; requestDraw(); });
   await page.waitForTimeout(1500);
@@ -248,7 +248,7 @@ ${open3}
 ## Frames while panning and zooming (warm server)
 
 Three rounds of a mouse drag (60 steps) and 20 wheel steps (10 out, 10 in), from
-three starting views: the whole sheet (every box drawn; the frame cache applies),
+three starting views: the whole sheet (every box drawn),
 halfway (0.45 CSS px per sheet px) and one CSS pixel per sheet pixel. The scale
 shown is where the view ends.
 

@@ -131,6 +131,51 @@ await saved(page);
 check(disk().symbols.find((s) => s.id === order[2]).state === "accepted", "redo accepted it again");
 await page.keyboard.press("Control+z");
 await saved(page);
+// The scene is copied from chunks drawn earlier (review/page/index.html, "the
+// scene cache"): after the edits above, a pan and a zoom, the copy must match a
+// frame drawn anew from the data (no box left where it was, no seam between
+// chunks). A part repainted after an edit is drawn under a clip, where the
+// rasteriser may round the edge pixels of thin dotted lines a few levels
+// differently (up to 5 of 255 seen), so 8 levels per channel are allowed; a box
+// left behind or missing differs by far more (its line colour on paper).
+// Both are taken once every tile is here, the chunks in view are drawn, and ten
+// frames more have been drawn with no tile asked for again (chunks drawn before
+// a tile arrived are drawn again a few a frame).
+async function canvasPixels(p, name, fresh) {
+  if (fresh) await p.evaluate(() => { window.__sceneCache.doc = null; });
+  for (;;) {
+    await p.waitForFunction(() => window.__review.loading === 0);
+    // A view that jumped is drawn directly until its chunks are drawn in idle time.
+    await p.waitForFunction(() => { const L = window.__sceneCache.cur; return L && L.scale === window.__review.scale && absent(L) === 0; });
+    const loading = await p.evaluate((name) => new Promise((done) => {
+      let n = 0;
+      const frame = () => {
+        if (n++ < 10) { requestDraw(); requestAnimationFrame(frame); return; }
+        const c = document.getElementById("canvas");
+        (window.__snap = window.__snap || {})[name] = c.getContext("2d").getImageData(0, 0, c.width, c.height).data;
+        done(window.__review.loading);
+      };
+      frame();
+    }), name);
+    if (loading === 0) return;
+  }
+}
+// The rejected proposal is brought into view first; V shows and hides it.
+await page.keyboard.press("Escape");
+await page.evaluate((id) => { const S = window.__review, b = S.local.symbols.find((s) => s.id === id).box; S.ox = b.x - 200 / S.scale; S.oy = b.y - 150 / S.scale; requestDraw(); }, order[1]);
+for (const keys of [[], ["v"], ["v"], ["ArrowLeft", "ArrowUp"], ["-", "-"], ["+", "+", "+"]]) {
+  for (const k of keys) await page.keyboard.press(k);
+  await page.waitForTimeout(300);
+  await canvasPixels(page, "cached", false);
+  await canvasPixels(page, "fresh", true);
+  const [worst, off] = await page.evaluate(() => {
+    const a = window.__snap.cached, b = window.__snap.fresh;
+    let worst = 0, off = 0;
+    for (let i = 0; i < a.length; i++) { const d = Math.abs(a[i] - b[i]); if (d) { off += 1; if (d > worst) worst = d; } }
+    return [worst, off];
+  });
+  check(worst <= 8, `the cached scene matches a fresh drawing after ${keys.join(", ") || "the edits"} (largest difference ${worst} in ${off} channel values)`);
+}
 
 // ---- 4. reload: the page shows what is on disk ------------------------------
 await page.reload();
