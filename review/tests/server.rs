@@ -399,41 +399,31 @@ fn stalled_clients_are_cut_off() {
     );
     let (addr, token) = (server.addr(), server.token().to_string());
 
+    // Sends `text` and stops there, then reads until the server closes the
+    // connection (the client gives up after 10 s): what came back, and when.
+    let stall = |text: String| {
+        let mut s = TcpStream::connect(addr).unwrap();
+        s.set_read_timeout(Some(Duration::from_secs(10))).unwrap();
+        s.write_all(text.as_bytes()).unwrap();
+        let t = Instant::now();
+        let mut buf = Vec::new();
+        let n = s.read_to_end(&mut buf);
+        assert!(n.is_ok(), "the server did not close the connection: {n:?}");
+        (String::from_utf8_lossy(&buf).into_owned(), t.elapsed())
+    };
+    let host = format!("Host: 127.0.0.1:{}", addr.port());
+
     // A head that never ends (the slow-headers attack): the connection is
     // closed after the head timeout, long before the client's own 10 s.
-    let mut s = TcpStream::connect(addr).unwrap();
-    s.set_read_timeout(Some(Duration::from_secs(10))).unwrap();
-    s.write_all(
-        format!(
-            "GET /api/sheets HTTP/1.1\r\nHost: 127.0.0.1:{}\r\n",
-            addr.port()
-        )
-        .as_bytes(),
-    )
-    .unwrap();
-    let t = Instant::now();
-    let mut buf = Vec::new();
-    let n = s.read_to_end(&mut buf);
-    assert!(n.is_ok(), "the server did not close the connection: {n:?}");
-    assert!(t.elapsed() < Duration::from_secs(5), "{:?}", t.elapsed());
+    let (_, took) = stall(format!("GET /api/sheets HTTP/1.1\r\n{host}\r\n"));
+    assert!(took < Duration::from_secs(5), "{took:?}");
 
     // A body that stops half way: 408, and nothing saved.
-    let mut s = TcpStream::connect(addr).unwrap();
-    s.set_read_timeout(Some(Duration::from_secs(10))).unwrap();
-    s.write_all(
-        format!(
-            "PUT /api/sheets/{id} HTTP/1.1\r\nHost: 127.0.0.1:{}\r\nX-Symtrust-Token: {token}\r\nContent-Length: 1000\r\n\r\n{{\"schema",
-            addr.port()
-        )
-        .as_bytes(),
-    )
-    .unwrap();
-    let t = Instant::now();
-    let mut buf = Vec::new();
-    let _ = s.read_to_end(&mut buf);
-    let text = String::from_utf8_lossy(&buf);
+    let (text, took) = stall(format!(
+        "PUT /api/sheets/{id} HTTP/1.1\r\n{host}\r\nX-Symtrust-Token: {token}\r\nContent-Length: 1000\r\n\r\n{{\"schema"
+    ));
     assert!(text.starts_with("HTTP/1.1 408"), "{text}");
-    assert!(t.elapsed() < Duration::from_secs(5), "{:?}", t.elapsed());
+    assert!(took < Duration::from_secs(5), "{took:?}");
     let store = LabelStore::at(&dir.path().join("labels"));
     assert_eq!(store.load(&id).unwrap().revision, 2);
 
